@@ -1,0 +1,621 @@
+"""CSV -> :class:`Dataset`: state labels, small-integer codes and the file's sha256.
+
+Reading rules (the same for every command):
+
+* The file must be UTF-8 text (a leading byte-order mark is allowed and ignored), comma
+  separated, with a header line naming the columns. Quoting follows the usual CSV rules
+  (``"a, b"`` is one field, ``""`` inside quotes is one quote character).
+* Every value is read as text, never as a number, and surrounding whitespace is removed
+  from values and from column names.
+* A value is *missing* when, after stripping, it is one of :data:`MISSING_SPELLINGS`:
+  the empty string, ``NA``, ``N/A``, ``NaN``, ``nan``, ``null``, ``NULL`` or ``None``
+  (case as written). A spelling that is one of a column's declared states is a state of
+  that column, not a missing value.
+* States are sorted (Python string order, so ``"10" < "9"``) unless the caller declares
+  them for a column, in which case they are exactly the declared ones, in that order.
+* Line numbers in messages are file lines, the header being line 1. Data frames that do
+  not come from a file (:func:`encode_frame`) name 1-based rows instead.
+* Declared states for a name that is not a column are ignored here: the spec check
+  reports those, with the spec's line.
+
+Every problem found is collected and raised together as an :class:`InputError`.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas
+
+from runner.errors import InputError, Problem
+
+#: Values (after stripping whitespace) read as "missing".
+MISSING_SPELLINGS: tuple[str, ...] = ("", "NA", "N/A", "NaN", "nan", "null", "NULL", "None")
+
+#: ``missing`` policies: stop with an error, or drop every row with a missing value.
+MISSING_POLICIES: tuple[str, ...] = ("error", "drop-rows")
+
+#: Most states one column can have (codes are at most 16-bit).
+MAX_ENCODABLE_STATES = 1 << 16
+
+CHUNK_BYTES = 1 << 20
+BOM = b"\xef\xbb\xbf"
+_SHOWN_LINES = 5  # row locations listed in one message
+_SHOWN_VALUES = 5  # undeclared values listed in one message
+_SHOWN_BAD_LINES = 5  # lines with a wrong field count reported one by one
+
+
+# --------------------------------------------------------------------------- the dataset
+
+
+@dataclass(frozen=True, eq=False)
+class Dataset:
+    """A table of categorical columns, encoded once for counting.
+
+    ``codes[i, r]`` is the state code of column ``i`` in row ``r``: an index into
+    ``states[i]``. The array is C-contiguous (so ``codes[i]`` is one contiguous column)
+    and read-only; its dtype is ``uint8`` when every column has at most 256 states and
+    ``uint16`` otherwise. Datasets compare by identity (they hold an array).
+    """
+
+    path: str
+    sha256: str
+    names: tuple[str, ...]
+    states: tuple[tuple[str, ...], ...]
+    codes: np.ndarray
+    dropped_rows: int = 0
+    warnings: tuple[Problem, ...] = ()
+
+    @property
+    def rows(self) -> int:
+        """Number of data rows (after any dropped for missing values)."""
+        return int(self.codes.shape[1])
+
+    @property
+    def arities(self) -> np.ndarray:
+        """Number of states of each column (int64), in column order."""
+        return np.array([len(s) for s in self.states], dtype=np.int64)
+
+    def index(self, name: str) -> int:
+        """Position of column ``name``; ``KeyError`` naming the columns if there is none."""
+        try:
+            return self.names.index(name)
+        except ValueError:
+            raise KeyError(f"no column named {name!r}; the columns are "
+                           f"{', '.join(self.names)}") from None
+
+    def take_rows(self, rows: np.ndarray) -> Dataset:
+        """The same columns and states on the selected rows (integer positions or a mask).
+
+        Rows may repeat (a bootstrap resample). ``path``, ``sha256``, ``dropped_rows`` and
+        ``warnings`` are those of this dataset: they describe the source file.
+        """
+        selected = np.asarray(rows)
+        if selected.dtype == np.bool_:
+            if selected.shape != (self.rows,):
+                raise ValueError(f"a row mask must have {self.rows} entries, "
+                                 f"not shape {selected.shape}")
+            selected = np.flatnonzero(selected)
+        elif selected.ndim != 1 or (selected.size and selected.dtype.kind not in "iu"):
+            raise ValueError("rows must be a 1-D array of integer positions or a boolean mask")
+        if selected.size and (selected.min() < 0 or selected.max() >= self.rows):
+            raise ValueError(f"row positions must lie in [0, {self.rows})")
+        codes = np.ascontiguousarray(self.codes[:, selected.astype(np.intp, copy=False)])
+        codes.flags.writeable = False
+        return Dataset(self.path, self.sha256, self.names, self.states, codes,
+                       self.dropped_rows, self.warnings)
+
+
+# --------------------------------------------------------------------------- public functions
+
+
+def file_sha256(path: Path) -> str:
+    """sha256 (hex) of a file's bytes, read in 1 MiB chunks."""
+    digest = hashlib.sha256()
+    with Path(path).open("rb") as handle:
+        while chunk := handle.read(CHUNK_BYTES):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def load_dataset(
+    path: str | Path,
+    *,
+    missing: str = "error",
+    declared_states: Mapping[str, Sequence[str]] | None = None,
+    max_states: int = 64,
+    expected_sha256: str | None = None,
+    display_path: str | None = None,
+    key_prefix: str = "dataset",
+) -> Dataset:
+    """Read, check and encode a CSV file; raise :class:`InputError` with every problem.
+
+    ``display_path`` is how the file is named in messages (default: ``path`` as given);
+    ``key_prefix`` is the spec section the options come from, used in message keys
+    (``dataset.sha256``, ``dataset.max_states``, ...).
+    """
+    _check_policy(missing)
+    file = display_path if display_path is not None else str(path)
+    target = Path(path)
+    raw = _read_file(target, file, key_prefix)
+    sha = hashlib.sha256(raw).hexdigest()
+    problems: list[Problem] = []
+    if expected_sha256 is not None and expected_sha256.strip().lower() != sha:
+        problems.append(Problem(
+            file, f"the file's sha256 is {sha}, but {expected_sha256} is pinned; the data has "
+            f"changed (update {key_prefix}.sha256 if the new file is intended)",
+            key=f"{key_prefix}.sha256"))
+
+    body = _checked_text(raw, file, problems)
+    table = _parse_csv(body, file, problems)
+    names, position_problems = _column_names(table.header, file, "in the header", line=1)
+    problems.extend(position_problems)
+    if table.data_rows == 0:
+        problems.append(Problem(file, "has a header (line 1) but no data rows", line=1))
+        raise InputError(problems)
+    if len(names) == 1 and any(sep in names[0] for sep in ";\t|"):
+        problems.append(Problem(
+            file, f"the header has a single column {names[0]!r}; dagmill reads comma-separated "
+            "files only", line=1, key=names[0], severity="warning"))
+
+    encoded = _encode_columns(
+        names, table.columns, file=file, locate=table.locate, unit="line",
+        declared=declared_states, max_states=max_states, missing=missing,
+        key_prefix=key_prefix)
+    problems.extend(encoded.problems)
+    if any(p.severity == "error" for p in problems):
+        raise InputError(problems)
+    warnings = tuple(p for p in problems if p.severity != "error") + encoded.warnings
+    return Dataset(str(path), sha, tuple(names), encoded.states, encoded.codes,
+                   encoded.dropped_rows, warnings)
+
+
+def encode_frame(
+    frame: pandas.DataFrame,
+    *,
+    path: str = "<frame>",
+    sha256: str = "",
+    declared_states: Mapping[str, Sequence[str]] | None = None,
+    max_states: int = 64,
+    missing: str = "error",
+) -> Dataset:
+    """Check and encode an in-memory table by the same rules as :func:`load_dataset`.
+
+    Values are turned into text with ``str`` (so ``1`` becomes ``"1"``) and stripped;
+    ``None`` and NaN are missing. Messages name 1-based rows and use ``path`` as the file.
+    """
+    _check_policy(missing)
+    problems: list[Problem] = []
+    labels = [str(c) for c in frame.columns]
+    names, position_problems = _column_names(labels, path, "in the frame", line=None)
+    problems.extend(position_problems)
+    if not names:
+        problems.append(Problem(path, "has no columns"))
+        raise InputError(problems)
+    if len(frame) == 0:
+        problems.append(Problem(path, "has no data rows"))
+        raise InputError(problems)
+    columns = [frame.iloc[:, j].to_numpy(dtype=object) for j in range(frame.shape[1])]
+    encoded = _encode_columns(
+        names, columns, file=path, locate=lambda rows: rows + 1, unit="row",
+        declared=declared_states, max_states=max_states, missing=missing,
+        key_prefix="dataset")
+    problems.extend(encoded.problems)
+    if any(p.severity == "error" for p in problems):
+        raise InputError(problems)
+    return Dataset(path, sha256, tuple(names), encoded.states, encoded.codes,
+                   encoded.dropped_rows, encoded.warnings)
+
+
+# --------------------------------------------------------------------------- reading the file
+
+
+def _check_policy(missing: str) -> None:
+    if missing not in MISSING_POLICIES:
+        raise ValueError(f"missing must be one of {', '.join(MISSING_POLICIES)}, not {missing!r}")
+
+
+def _read_file(target: Path, file: str, key_prefix: str) -> bytes:
+    key = f"{key_prefix}.path"
+    try:
+        if not target.exists():
+            raise InputError(Problem(file, f"file not found (looked for {target.absolute()})",
+                                     key=key))
+        if target.is_dir():
+            raise InputError(Problem(file, "is a folder, not a CSV file", key=key))
+        if not target.is_file():
+            raise InputError(Problem(file, "is not a regular file", key=key))
+        return target.read_bytes()
+    except PermissionError:
+        raise InputError(Problem(file, "cannot be read: permission denied", key=key)) from None
+    except OSError as exc:
+        reason = exc.strerror or str(exc)
+        raise InputError(Problem(file, f"cannot be read: {reason}", key=key)) from None
+
+
+def _checked_text(raw: bytes, file: str, problems: list[Problem]) -> bytes:
+    """The file's bytes without a byte-order mark or trailing blank lines, ending in "\\n",
+    once they are known to be UTF-8 text that is not empty."""
+    try:
+        raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        hint = ""
+        if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
+            hint = "; it looks like UTF-16"
+        problems.append(Problem(
+            file, f"is not UTF-8 text: byte 0x{raw[exc.start]:02X} on line {line} cannot be "
+            f"decoded{hint}; save the file as UTF-8", line=line))
+        raise InputError(problems) from None
+    if b"\x00" in raw:
+        line = raw[: raw.index(b"\x00")].count(b"\n") + 1
+        problems.append(Problem(file, "contains NUL bytes: it looks like a binary file, not "
+                                "CSV text", line=line))
+        raise InputError(problems)
+    data = raw[len(BOM):] if raw.startswith(BOM) else raw
+    if not data.strip():
+        problems.append(Problem(file, "is empty: there is no header and no data"))
+        raise InputError(problems)
+    return data.rstrip(b"\r\n \t") + b"\n"
+
+
+@dataclass
+class _Table:
+    header: list[str]
+    columns: list[np.ndarray]
+    data_rows: int
+    locate: Callable[[np.ndarray], np.ndarray]
+
+
+def _parse_csv(body: bytes, file: str, problems: list[Problem]) -> _Table:
+    """Header, field-count check and the columns as object arrays of raw strings.
+
+    ``body`` is UTF-8 and ends with its last non-blank line. Every line must have as many
+    fields as the header; a blank line in a one-column file is one empty (missing) value.
+    """
+    try:
+        header = next(csv.reader(_text_lines(body), strict=True))
+    except csv.Error as exc:
+        problems.append(Problem(file, f"the header (line 1) could not be read as CSV: {exc}",
+                                line=1))
+        raise InputError(problems) from None
+    width = len(header)
+    if width == 0 or (width == 1 and not header[0].strip()):
+        problems.append(Problem(file, "the header (line 1) is blank; the first line must name "
+                                "the columns", line=1))
+        raise InputError(problems)
+    simple = b'"' not in body and body.count(b"\r") == body.count(b"\r\n")
+    if simple:
+        fields, starts = _field_counts_simple(body)
+    else:
+        fields, starts = _field_counts_quoted(body, file, problems)
+    data_fields = fields[1:]
+    if width == 1:
+        data_fields = np.where(data_fields == 0, 1, data_fields)
+    bad = np.flatnonzero(data_fields != width)
+    if bad.size:
+        for row in bad[:_SHOWN_BAD_LINES]:
+            line = int(starts[row + 1])
+            count = int(data_fields[row])
+            what = "is blank" if count == 0 else f"has {_plural(count, 'field')}"
+            problems.append(Problem(
+                file, f"line {line} {what}, but the header has {_plural(width, 'field')}",
+                line=line))
+        if bad.size > _SHOWN_BAD_LINES:
+            more = bad.size - _SHOWN_BAD_LINES
+            problems.append(Problem(
+                file, f"and {more:,} more {'line' if more == 1 else 'lines'} with a different "
+                f"number of fields than the header ({width})",
+                line=int(starts[bad[_SHOWN_BAD_LINES] + 1])))
+        raise InputError(problems)
+    data_rows = len(data_fields)
+    if data_rows == 0:
+        return _Table(header, [], 0, lambda rows: rows + 2)
+    try:
+        frame = pandas.read_csv(
+            io.BytesIO(body), encoding="utf-8", header=0, names=list(range(width)), dtype=object,
+            keep_default_na=False, na_filter=False, skip_blank_lines=False, index_col=False,
+            engine="c")
+    except (pandas.errors.ParserError, ValueError) as exc:
+        reason = str(exc).split("C error: ")[-1].strip()
+        problems.append(Problem(file, f"could not be read as CSV: {reason}"))
+        raise InputError(problems) from None
+    if len(frame) != data_rows:
+        problems.append(Problem(file, f"could not be read as CSV consistently: found {data_rows:,}"
+                                f" records, but the CSV reader read {len(frame):,} rows"))
+        raise InputError(problems)
+    columns = [frame[j].to_numpy(dtype=object) for j in range(width)]
+    data_starts = starts[1:]
+    return _Table(header, columns, data_rows, lambda rows: data_starts[rows])
+
+
+def _field_counts_simple(body: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """Fields per line and each line's number, when no field is quoted (vectorised)."""
+    buf = np.frombuffer(body, dtype=np.uint8)
+    ends = np.flatnonzero(buf == 0x0A)  # body ends with "\n": one end per line
+    begins = np.concatenate(([0], ends[:-1] + 1))
+    commas = np.flatnonzero(buf == 0x2C)
+    fields = np.bincount(np.searchsorted(ends, commas), minlength=len(ends)) + 1
+    length = ends - begins
+    has_cr = np.zeros(len(ends), dtype=bool)
+    nonempty = length > 0
+    has_cr[nonempty] = buf[ends[nonempty] - 1] == 0x0D
+    fields[(length - has_cr) == 0] = 0
+    return fields.astype(np.int64), np.arange(1, len(ends) + 1, dtype=np.int64)
+
+
+def _field_counts_quoted(body: bytes, file: str,
+                         problems: list[Problem]) -> tuple[np.ndarray, np.ndarray]:
+    """Fields per record and the line each starts on, when quoted fields may span lines.
+
+    A Python loop over the records: only files with quotes take this path.
+    """
+    reader = csv.reader(_text_lines(body), strict=True)
+    fields: list[int] = []
+    starts: list[int] = []
+    previous = 0
+    try:
+        for record in reader:
+            starts.append(previous + 1)
+            fields.append(len(record))
+            previous = reader.line_num
+    except csv.Error as exc:
+        line = previous + 1
+        problems.append(Problem(file, f"could not be read as CSV from line {line} on: {exc}",
+                                line=line))
+        raise InputError(problems) from None
+    return np.array(fields, dtype=np.int64), np.array(starts, dtype=np.int64)
+
+
+def _text_lines(body: bytes) -> Iterator[str]:
+    """The lines of ``body`` as text, line ends kept, without copying the whole file."""
+    start, size = 0, len(body)
+    while start < size:
+        end = body.find(b"\n", start)
+        end = size if end < 0 else end + 1
+        yield body[start:end].decode("utf-8")
+        start = end
+
+
+def _column_names(labels: Sequence[str], file: str, where: str,
+                  line: int | None) -> tuple[list[str], list[Problem]]:
+    """Stripped column names, and a problem for each empty or repeated one."""
+    names = [label.strip() for label in labels]
+    problems: list[Problem] = []
+    seen: dict[str, list[int]] = {}
+    for position, name in enumerate(names, start=1):
+        if not name:
+            problems.append(Problem(file, f"column {position} {where} has no name", line=line))
+        else:
+            seen.setdefault(name, []).append(position)
+    for name, positions in seen.items():
+        if len(positions) > 1:
+            problems.append(Problem(
+                file, f"column name {name!r} appears {len(positions)} times {where}, at "
+                f"positions {_and_list([str(p) for p in positions])} (counting from 1); "
+                "column names must be unique", line=line, key=name))
+    return names, problems
+
+
+# --------------------------------------------------------------------------- encoding
+
+
+@dataclass
+class _Encoded:
+    states: tuple[tuple[str, ...], ...]
+    codes: np.ndarray
+    dropped_rows: int
+    warnings: tuple[Problem, ...]
+    problems: list[Problem]
+
+
+@dataclass
+class _Column:
+    """One column factorised on its raw values: ``labels[raw_codes[r]]`` is row r's label."""
+
+    raw_codes: np.ndarray  # intp, one per row
+    labels: list[str | None]  # stripped label per raw unique; None = missing
+    declared: tuple[str, ...] | None
+
+
+def _factorise(values: np.ndarray, declared: tuple[str, ...] | None) -> _Column:
+    """Factorise raw values, strip the (few) distinct ones, and mark the missing ones."""
+    raw_codes, uniques = pandas.factorize(values, use_na_sentinel=True)
+    spellings = set(MISSING_SPELLINGS) - set(declared or ())
+    labels: list[str | None] = []
+    for unique in uniques:
+        label = str(unique).strip()
+        labels.append(None if label in spellings else label)
+    raw_codes = np.asarray(raw_codes, dtype=np.intp)
+    if (raw_codes < 0).any():  # None or NaN in an in-memory frame
+        raw_codes = np.where(raw_codes < 0, len(labels), raw_codes)
+        labels.append(None)
+    return _Column(raw_codes, labels, declared)
+
+
+def _encode_columns(
+    names: Sequence[str],
+    columns: Sequence[np.ndarray],
+    *,
+    file: str,
+    locate: Callable[[np.ndarray], np.ndarray],
+    unit: str,
+    declared: Mapping[str, Sequence[str]] | None,
+    max_states: int,
+    missing: str,
+    key_prefix: str,
+) -> _Encoded:
+    problems: list[Problem] = []
+    warnings: list[Problem] = []
+    declared = declared or {}
+    parsed: list[_Column] = []
+    for name, values in zip(names, columns, strict=True):
+        states = declared.get(name)
+        if states is not None:
+            states = tuple(states)
+            problems.extend(_declared_problems(name, states, file, key_prefix))
+        parsed.append(_factorise(values, states))
+
+    n_rows = len(columns[0]) if columns else 0
+    missing_masks = [
+        np.array([label is None for label in col.labels], dtype=bool)[col.raw_codes]
+        for col in parsed
+    ]
+    keep = np.ones(n_rows, dtype=bool)
+    if missing == "error":
+        for name, mask in zip(names, missing_masks, strict=True):
+            if mask.any():
+                rows = np.flatnonzero(mask)
+                where = locate(rows[:_SHOWN_LINES])
+                first = "at" if rows.size <= _SHOWN_LINES else "first at"
+                problems.append(Problem(
+                    file, f"column {name!r} has {_plural(rows.size, 'missing value')} (empty or "
+                    f"an NA spelling), {first} {_locations(unit, where)}; fill "
+                    f"{'it' if rows.size == 1 else 'them'} in, or set {key_prefix}.missing: "
+                    "drop-rows to drop such rows",
+                    line=int(where[0]) if unit == "line" else None, key=name))
+    else:
+        for mask in missing_masks:
+            keep &= ~mask
+    dropped = int(n_rows - keep.sum())
+    if dropped:
+        if dropped == n_rows:
+            problems.append(Problem(
+                file, f"every one of the {n_rows:,} data rows has a missing value; nothing is "
+                f"left after {key_prefix}.missing: drop-rows", key=f"{key_prefix}.missing"))
+            return _Encoded((), np.zeros((len(names), 0), np.uint8), dropped, (), problems)
+        warnings.append(Problem(
+            file, f"dropped {dropped:,} of {n_rows:,} data rows with a missing value "
+            f"({key_prefix}.missing: drop-rows)", key=f"{key_prefix}.missing",
+            severity="warning"))
+    kept_rows = np.flatnonzero(keep) if dropped else None
+
+    all_states: list[tuple[str, ...]] = []
+    all_codes: list[np.ndarray] = []
+    for name, col in zip(names, parsed, strict=True):
+        raw = col.raw_codes if kept_rows is None else col.raw_codes[kept_rows]
+        present = np.bincount(raw, minlength=len(col.labels)) > 0
+        seen = sorted({label for label, p in zip(col.labels, present, strict=True)
+                       if p and label is not None})
+        if col.declared is None:
+            if len(seen) > max_states:
+                problems.append(Problem(
+                    file, f"column {name!r} has {len(seen):,} distinct values, more than the "
+                    f"limit of {max_states:,} ({key_prefix}.max_states); it looks like an "
+                    "identifier or a continuous measurement", key=name))
+                continue
+            states = tuple(seen)
+        else:
+            states = col.declared
+            unseen = [s for s in states if s not in set(seen)]
+            if unseen:
+                warnings.append(Problem(
+                    file, f"declared {_plural(len(unseen), 'state', bare=True)} "
+                    f"{_and_list([repr(s) for s in unseen])} never "
+                    f"{'occurs' if len(unseen) == 1 else 'occur'} in the data; kept, with zero "
+                    "counts", key=name, severity="warning"))
+        if len(states) > MAX_ENCODABLE_STATES:
+            problems.append(Problem(
+                file, f"column {name!r} has {len(states):,} states, more than the "
+                f"{MAX_ENCODABLE_STATES:,} that can be encoded", key=name))
+            continue
+        if len(seen) == 1:
+            warnings.append(Problem(
+                file, f"column {name!r} has the same value {seen[0]!r} in every row; it is kept, "
+                "but it can neither depend on nor explain another column", key=name,
+                severity="warning"))
+        index = {s: i for i, s in enumerate(states)}
+        undeclared, missing_code = -2, -1
+        lut = np.array([missing_code if label is None else index.get(label, undeclared)
+                        for label in col.labels], dtype=np.int64)
+        codes = lut[raw]
+        bad = codes == undeclared
+        if bad.any():
+            problems.append(_undeclared_problem(
+                name, states, col, raw, bad, file, locate, kept_rows, unit, key_prefix))
+            continue
+        all_states.append(states)
+        all_codes.append(codes)
+
+    if problems and any(p.severity == "error" for p in problems):
+        return _Encoded((), np.zeros((len(names), 0), np.uint8), dropped, tuple(warnings),
+                        problems)
+    widest = max(len(s) for s in all_states)
+    dtype = np.uint8 if widest <= 256 else np.uint16
+    matrix = np.empty((len(names), len(all_codes[0])), dtype=dtype)
+    for i, codes in enumerate(all_codes):
+        matrix[i] = codes
+    matrix.flags.writeable = False
+    return _Encoded(tuple(all_states), matrix, dropped, tuple(warnings), problems)
+
+
+def _declared_problems(name: str, states: tuple[str, ...], file: str,
+                       key_prefix: str) -> list[Problem]:
+    key = f"{key_prefix}.columns.{name}.states"
+    problems = []
+    if not states:
+        problems.append(Problem(file, f"column {name!r} declares no states", key=key))
+    repeated = sorted({s for s in states if states.count(s) > 1})
+    if repeated:
+        problems.append(Problem(
+            file, f"column {name!r} declares {_and_list([repr(s) for s in repeated])} more than "
+            "once", key=key))
+    if any(not isinstance(s, str) for s in states):
+        problems.append(Problem(file, f"column {name!r} declares states that are not text",
+                                key=key))
+    return problems
+
+
+def _undeclared_problem(
+    name: str, states: tuple[str, ...], col: _Column, raw: np.ndarray, bad: np.ndarray,
+    file: str, locate: Callable[[np.ndarray], np.ndarray], kept_rows: np.ndarray | None,
+    unit: str, key_prefix: str,
+) -> Problem:
+    """One problem listing the values outside the declared states, with their first rows."""
+    bad_rows = np.flatnonzero(bad)
+    labels_of_bad = np.array([col.labels[c] for c in raw[bad_rows]], dtype=object)
+    distinct, first = np.unique(labels_of_bad.astype(str), return_index=True)
+    order = np.argsort(first, kind="stable")
+    parts = []
+    first_line: int | None = None
+    for k in order[:_SHOWN_VALUES]:
+        rows = bad_rows[labels_of_bad == distinct[k]][:3]
+        original = rows if kept_rows is None else kept_rows[rows]
+        where = locate(original)
+        if first_line is None:
+            first_line = int(where[0])
+        parts.append(f"{str(distinct[k])!r} at {_locations(unit, where)}")
+    if len(distinct) > _SHOWN_VALUES:
+        parts.append(f"and {len(distinct) - _SHOWN_VALUES:,} more")
+    shown = ", ".join(states[:12]) + (", ..." if len(states) > 12 else "")
+    what = "a value that is not" if len(distinct) == 1 else "values that are not"
+    return Problem(
+        file, f"column {name!r} has {what} among its declared states {shown} "
+        f"({key_prefix}.columns.{name}.states): {'; '.join(parts)}",
+        line=first_line if unit == "line" else None, key=name)
+
+
+# --------------------------------------------------------------------------- wording
+
+
+def _plural(count: int, noun: str, bare: bool = False) -> str:
+    word = noun if count == 1 else noun + "s"
+    return word if bare else f"{count:,} {word}"
+
+
+def _and_list(items: Sequence[str]) -> str:
+    if len(items) <= 1:
+        return "".join(items)
+    return ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def _locations(unit: str, numbers: Any) -> str:
+    shown = [f"{int(n):,}" for n in numbers]
+    return f"{unit} {shown[0]}" if len(shown) == 1 else f"{unit}s {_and_list(shown)}"

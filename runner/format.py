@@ -1,0 +1,54 @@
+"""Plain-text formatting of tables and run summaries for the command line."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+
+def render_table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
+    """A compact left-aligned text table with a rule under the header."""
+    widths = [len(h) for h in header]
+    for row in rows:
+        widths = [max(w, len(str(c))) for w, c in zip(widths, row, strict=True)]
+    lines = ["  ".join(str(c).ljust(w) for c, w in zip(header, widths, strict=True)).rstrip(),
+             "  ".join("-" * w for w in widths)]
+    lines += ["  ".join(str(c).ljust(w) for c, w in zip(row, widths, strict=True)).rstrip()
+              for row in rows]
+    return "\n".join(lines)
+
+
+def summary_lines(record: dict[str, Any], folder: Path | None = None) -> list[str]:
+    """A run's summary: inputs and hashes, score, search, edges, timings, the caution."""
+    data, score, search = record["data"], record["score"], record["search"]
+    lines = [
+        f"run        {record['run_id']}",
+        f"spec       {record['spec_name']}  ({record.get('spec_path', '?')})",
+        f"spec hash  {record['spec_sha256']}",
+        f"data       {data['path']}  rows {data['rows']}  columns {len(data['columns'])}"
+        + (f"  dropped {data['dropped_rows']}" if data.get("dropped_rows") else ""),
+        f"data hash  {data['sha256']}",
+        f"input hash {record['input_sha256']}",
+        f"code       {record['code_version']}",
+        f"score      {score['name']} = {score['value']:.6f}  ({score['per_row']:.6f} per row)",
+        f"search     {search['method']}  seed {search['seed']}  stop {search['stop_reason']}"
+        f"  steps {search['steps']}  evaluations {search['evaluations']}"
+        f"  cache hits {search.get('cache_hits', 0)}",
+        f"seconds    search {record['seconds']['search']:.3f}  "
+        f"total {record['seconds']['total']:.3f}",
+        f"graph hash {record['graph_sha256']}",
+    ]
+    if folder is not None:
+        lines.append(f"folder     {folder}")
+    edges = record["edges"]
+    lines.append(f"edges      {len(edges)}")
+    families = score.get("families", {})
+    lines += [f"  {a} -> {b}" for a, b in edges]
+    if families:
+        lines.append("families (lowest first)")
+        worst = sorted(families.items(), key=lambda kv: (kv[1], kv[0]))
+        lines += [f"  {name:<20} {value:.4f}" for name, value in worst]
+    lines.append("")
+    lines.append("caution: " + record.get("caution", ""))
+    return lines

@@ -1,0 +1,220 @@
+"""spec -> data -> constraints -> score -> search -> record, in one direction.
+
+The command line calls these functions and only formats what they return.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import platform
+import time
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import networkx
+import numpy as np
+import pandas
+import pydantic
+
+from runner.codeversion import code_sha256, code_version
+from runner.constraints import Constraints, build_constraints
+from runner.data import Dataset, load_dataset
+from runner.errors import InputError, Problem
+from runner.graph import edges_from_parents, graph_sha256
+from runner.scores import SCORE_EQUIVALENT, build_scorer
+from runner.search import METHODS, Budget, MoveEngine
+from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
+from runner.store import find_twin, trace_csv, write_run
+
+CAUTION = (
+    "A learned structure is statistical association under assumptions (no hidden common "
+    "causes, no selection bias, enough data, a correct model class), not proof of cause. "
+    "Decisions that affect people or safety need review by domain experts."
+)
+
+
+@dataclass
+class Prepared:
+    """A spec with its data loaded and its constraints built, ready to learn."""
+
+    spec: Spec
+    dataset: Dataset
+    constraints: Constraints
+    data_display: str
+    spec_display: str
+    warnings: list[Problem] = field(default_factory=list)
+
+
+def prepare(spec_path: str | Path, data_path: str | Path | None = None) -> Prepared:
+    """Load and check a spec and its data; raise InputError with every problem found.
+
+    When the spec itself has problems but its ``dataset`` block is sound, the data and
+    the variable names are still checked, so one call reports everything.
+    """
+    problems: list[Problem] = []
+    try:
+        spec = load_spec(spec_path)
+    except InputError as exc:
+        problems.extend(exc.problems)
+        if not isinstance(exc.partial_spec, Spec):
+            raise
+        spec = exc.partial_spec
+    warnings = list(spec.warnings)
+    ds = spec.dataset
+    if data_path is not None:
+        path, display, pin = Path(data_path), str(data_path), None
+    else:
+        path, display, pin = spec.dataset_path(), ds.path, ds.sha256
+    declared = {n: list(c.states) for n, c in ds.columns.items() if c.states}
+    try:
+        dataset = load_dataset(
+            path, missing=ds.missing, declared_states=declared, max_states=ds.max_states,
+            expected_sha256=pin, display_path=display,
+        )
+    except InputError as exc:
+        raise InputError(problems + exc.problems) from None
+    warnings.extend(dataset.warnings)
+    problems += check_spec_against_columns(spec, dataset.names, data_file=display)
+    if problems:
+        raise InputError(problems)
+    constraints = build_constraints(
+        dataset.names, spec.tiers, spec.within_tier, spec.forbidden, spec.required,
+        spec.parent_cap,
+    )
+    return Prepared(spec, dataset, constraints, display, str(spec_path), warnings)
+
+
+def validate(spec_path: str | Path) -> tuple[list[Problem], list[Problem]]:
+    """Every error and warning of one spec and its data: ``(errors, warnings)``."""
+    try:
+        prepared = prepare(spec_path)
+    except InputError as exc:
+        errors = [p for p in exc.problems if p.severity == "error"]
+        return errors, [p for p in exc.problems if p.severity != "error"]
+    return [], prepared.warnings
+
+
+def input_sha256(spec_hash: str, data_hash: str, version: str) -> str:
+    """The hash that names a run's inputs: spec hash, data hash and code version."""
+    return hashlib.sha256(f"{spec_hash}\n{data_hash}\n{version}".encode()).hexdigest()
+
+
+def environment() -> dict[str, str]:
+    return {
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "pandas": pandas.__version__,
+        "pydantic": pydantic.__version__,
+        "networkx": networkx.__version__,
+        "platform": platform.platform(),
+    }
+
+
+@dataclass
+class RunResult:
+    run_id: str
+    folder: Path
+    record: dict[str, Any]
+    twin: dict[str, Any] | None
+    warnings: list[Problem]
+
+    @property
+    def twin_identical(self) -> bool | None:
+        if self.twin is None:
+            return None
+        return (self.twin["graph_sha256"] == self.record["graph_sha256"]
+                and self.twin["score"]["value"] == self.record["score"]["value"])
+
+
+def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], str]:
+    """Learn the structure of a prepared spec; return the record (without run id) and trace."""
+    started = time.perf_counter()
+    spec, dataset = prepared.spec, prepared.dataset
+    names = dataset.names
+    effective_seed = spec.search.seed if seed is None else seed
+    spec_hash = spec_sha256(spec, seed=seed)
+    version = code_version()
+    inputs = input_sha256(spec_hash, dataset.sha256, version)
+
+    scorer = build_scorer(spec.score.name, dataset.codes, dataset.arities, ess=spec.score.ess)
+    start = [[] for _ in names]
+    for i, j in sorted(prepared.constraints.required):
+        start[j].append(i)
+    engine = MoveEngine(scorer, prepared.constraints, start)
+    b = spec.search.budget
+    budget = Budget(b.max_steps, b.max_evaluations, b.max_seconds)
+    outcome = METHODS[spec.search.method](engine, budget)
+
+    edges = edges_from_parents(names, outcome.parent_sets)
+    families = {names[c]: scorer.family(c, ps) for c, ps in enumerate(outcome.parent_sets)}
+    score_block: dict[str, Any] = {
+        "name": spec.score.name,
+        "value": outcome.score,
+        "per_row": outcome.score / dataset.rows,
+        "families": families,
+        "score_equivalent": spec.score.name in SCORE_EQUIVALENT,
+    }
+    if spec.score.name == "bdeu":
+        score_block["ess"] = spec.score.ess
+    record: dict[str, Any] = {
+        "run_id": None,
+        "spec_name": spec.name,
+        "spec_path": prepared.spec_display,
+        "spec": normalised_spec(spec, seed=seed),
+        "spec_sha256": spec_hash,
+        "input_sha256": inputs,
+        "code_version": version,
+        "code_sha256": code_sha256(),
+        "created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "data": {
+            "path": prepared.data_display,
+            "sha256": dataset.sha256,
+            "rows": dataset.rows,
+            "dropped_rows": dataset.dropped_rows,
+            "columns": {
+                n: {"kind": "discrete", "states": list(s), "kind_reason": "discrete by default"}
+                for n, s in zip(names, dataset.states, strict=True)
+            },
+        },
+        "seed": effective_seed,
+        "score": score_block,
+        "search": {
+            "method": spec.search.method,
+            "start": spec.search.start,
+            "seed": effective_seed,
+            "stop_reason": outcome.stop_reason,
+            "steps": outcome.steps,
+            "evaluations": outcome.evaluations,
+            "cache_hits": outcome.cache_hits,
+            "converged": outcome.converged,
+            "budget": {"max_steps": b.max_steps, "max_evaluations": b.max_evaluations,
+                       "max_seconds": b.max_seconds},
+        },
+        "edges": [list(e) for e in edges],
+        "graph_sha256": graph_sha256(edges),
+        "seconds": {"search": round(outcome.seconds, 6),
+                    "total": round(time.perf_counter() - started, 6)},
+        "environment": environment(),
+        "warnings": [p.format() for p in prepared.warnings],
+        "caution": CAUTION,
+    }
+    trace = trace_csv(
+        (r.step, r.move, names[r.source], names[r.target], r.delta, r.score)
+        for r in outcome.trace
+    )
+    return record, trace
+
+
+def run_spec(spec_path: str | Path, results: Path, data_path: str | Path | None = None,
+             seed: int | None = None) -> RunResult:
+    """Prepare, learn and store one spec; report an earlier run with the same inputs."""
+    prepared = prepare(spec_path, data_path)
+    record, trace = learn(prepared, seed)
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
+    record["run_id"] = f"{stamp}-{record['input_sha256'][:10]}"
+    twin = find_twin(results, record["spec_name"], record["input_sha256"], exclude="")
+    run_id, folder = write_run(results, record, trace)
+    record["run_id"] = run_id
+    return RunResult(run_id, folder, record, twin, prepared.warnings)

@@ -1,0 +1,55 @@
+"""Decomposable family scores.
+
+A score here is a function of one family's count table: ``f(table, q, n_rows) -> float``.
+The total score of a DAG is the sum of its family scores. :func:`build_scorer` binds a
+score to encoded data and returns a :class:`~runner.scores.cache.FamilyScorer`, which
+counts and caches families by (child, parent set).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from functools import partial
+
+import numpy as np
+
+from runner.scores.cache import FamilyScorer
+from runner.scores.dirichlet import bdeu_family, k2_family
+from runner.scores.likelihood import aic_family, bic_family, loglik_family
+
+FamilyScore = Callable[[np.ndarray, int, int], float]
+
+DISCRETE_SCORES: dict[str, FamilyScore] = {
+    "loglik": loglik_family,
+    "aic": aic_family,
+    "bic": bic_family,
+    "bdeu": bdeu_family,
+    "k2": k2_family,
+}
+
+SCORE_EQUIVALENT = frozenset({"loglik", "aic", "bic", "bdeu"})
+
+
+def family_function(name: str, ess: float = 1.0) -> FamilyScore:
+    """The family score called ``name``; ``ess`` is BDeu's equivalent sample size."""
+    if name not in DISCRETE_SCORES:
+        raise ValueError(f"unknown score {name!r}; known: {', '.join(DISCRETE_SCORES)}")
+    if name == "bdeu":
+        return partial(bdeu_family, ess=ess)
+    return DISCRETE_SCORES[name]
+
+
+def build_scorer(
+    name: str,
+    codes: np.ndarray,
+    arities: np.ndarray | list[int],
+    ess: float = 1.0,
+    cache_limit: int | None = None,
+) -> FamilyScorer:
+    """A cached family scorer of score ``name`` over ``codes`` (shape n_vars x n_rows)."""
+    return FamilyScorer(
+        family_function(name, ess), codes, np.asarray(arities, dtype=np.int64), cache_limit
+    )
+
+
+__all__ = ["DISCRETE_SCORES", "SCORE_EQUIVALENT", "FamilyScorer", "build_scorer"]

@@ -1,0 +1,84 @@
+"""Contingency counts of a family, by mixed-radix codes and ``numpy.bincount``.
+
+A family is a child and its parent set. Each row of the data gets a parent
+configuration code ``j = sum_p x_p * prod_{p' after p} r_p'`` (mixed radix over the
+parents' arities) and a family code ``j * r_child + x_child``. One ``bincount`` over
+the family codes gives every count N_ijk at once. Only the parent configurations
+that occur in the data are kept: the others contribute nothing to any score here.
+
+Complexity: O(N * |parents|) for the codes plus O(N + q * r) for the count, where q is
+the number of parent configurations; when q * r is much larger than N the codes are
+compacted with ``numpy.unique`` first (O(N log N)) so memory stays O(N).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+# Above this many cells (relative to the rows) a dense bincount wastes memory, and the
+# occurring family codes are compacted with numpy.unique instead.
+DENSE_CELLS_PER_ROW = 4
+DENSE_CELLS_FLOOR = 1 << 16
+
+
+def code_dtype(cells: int) -> type[np.unsignedinteger]:
+    """Smallest unsigned integer type that holds codes below ``cells``."""
+    if cells <= 1 << 8:
+        return np.uint8
+    if cells <= 1 << 16:
+        return np.uint16
+    if cells <= 1 << 32:
+        return np.uint32
+    return np.uint64
+
+
+def configuration_codes(
+    codes: np.ndarray, arities: np.ndarray, variables: Sequence[int]
+) -> tuple[np.ndarray, int]:
+    """Mixed-radix code of each row's joint state of ``variables``, and the code count.
+
+    ``codes`` has shape (n_vars, n_rows). Returns an integer array of length n_rows and
+    the number of possible codes (the product of the arities; 1 for no variables).
+    """
+    n_rows = codes.shape[1]
+    cells = 1
+    for v in variables:
+        cells *= int(arities[v])
+    if not variables:
+        return np.zeros(n_rows, dtype=np.uint8), 1
+    dtype = code_dtype(cells)
+    out = codes[variables[0]].astype(dtype)
+    for v in variables[1:]:
+        out *= dtype(arities[v])
+        out += codes[v]
+    return out, cells
+
+
+def family_counts(
+    codes: np.ndarray, arities: np.ndarray, child: int, parents: Sequence[int]
+) -> tuple[np.ndarray, int]:
+    """Counts N_jk of the child's states k per occurring parent configuration j.
+
+    Returns ``(table, q)``: ``table`` has shape (q_occurring, r_child) with every row
+    summing to at least 1, and ``q`` is the number of possible parent configurations
+    (the product of the parents' arities), which penalties and priors need.
+    """
+    r = int(arities[child])
+    n_rows = codes.shape[1]
+    parent_code, q = configuration_codes(codes, arities, list(parents))
+    cells = q * r
+    if not parents:
+        table = np.bincount(codes[child], minlength=r).reshape(1, r)
+        return table, 1
+    dtype = code_dtype(cells)
+    family_code = parent_code.astype(dtype, copy=False) * dtype(r) + codes[child]
+    if cells <= max(DENSE_CELLS_PER_ROW * n_rows, DENSE_CELLS_FLOOR):
+        dense = np.bincount(family_code, minlength=cells).reshape(q, r)
+        return dense[dense.any(axis=1)], q
+    occurring, counts = np.unique(family_code, return_counts=True)
+    configs, row_of = np.unique(occurring // r, return_inverse=True)
+    table = np.zeros((configs.size, r), dtype=np.int64)
+    table[row_of, (occurring % r).astype(np.intp)] = counts
+    return table, q

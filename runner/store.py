@@ -1,0 +1,171 @@
+"""The result store: run records as plain, stable, atomically written files.
+
+Layout (see the README)::
+
+    <results>/<spec name>/baseline.json
+    <results>/<spec name>/runs/<run id>/run.json
+    <results>/<spec name>/runs/<run id>/trace.csv
+
+JSON is written with sorted keys, two-space indents and a final newline, so records
+diff cleanly under version control. A run folder is assembled under a temporary name
+in the same ``runs/`` folder and renamed into place in one step: a killed run leaves
+no half-written record, and an existing run is never overwritten.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import os
+import re
+import tempfile
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+from typing import Any
+
+from runner.errors import InputError, Problem
+from runner.graph import graph_sha256
+
+RESULTS_ENV = "DAGMILL_RESULTS"
+RUN_ID = re.compile(r"^\d{8}T\d{6}Z-[0-9a-f]{10}(-\d+)?$")
+TRACE_HEADER = ("step", "move", "from", "to", "delta", "score")
+
+
+def dump_json(value: Any) -> str:
+    """Stable JSON text: sorted keys, two-space indents, a final newline."""
+    return json.dumps(value, sort_keys=True, indent=2, ensure_ascii=False) + "\n"
+
+
+def sha256_text(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def results_root(option: str | None) -> Path:
+    """The results folder: the option, else ``$DAGMILL_RESULTS``, else ``./results``."""
+    return Path(option or os.environ.get(RESULTS_ENV) or "results")
+
+
+def atomic_write_text(path: Path, text: str) -> None:
+    """Write ``text`` to ``path`` through a temporary file in the same folder and a rename."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+def trace_csv(rows: Iterable[Sequence[Any]]) -> str:
+    """The trace as CSV text: one row per applied move, floats in shortest round-trip form."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(TRACE_HEADER)
+    for row in rows:
+        writer.writerow([repr(v) if isinstance(v, float) else v for v in row])
+    return buffer.getvalue()
+
+
+def write_run(root: Path, record: dict[str, Any], trace: str) -> tuple[str, Path]:
+    """Store a run; return its final run id (a suffix is added on a same-second clash)."""
+    runs = root / record["spec_name"] / "runs"
+    runs.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=".incoming-", dir=runs))
+    try:
+        base_id = record["run_id"]
+        for attempt in range(1, 1000):
+            run_id = base_id if attempt == 1 else f"{base_id}-{attempt}"
+            record = {**record, "run_id": run_id}
+            (staging / "run.json").write_text(dump_json(record), encoding="utf-8")
+            (staging / "trace.csv").write_text(trace, encoding="utf-8")
+            final = runs / run_id
+            if final.exists():
+                continue
+            try:
+                os.rename(staging, final)
+            except OSError:
+                if final.exists():
+                    continue
+                raise
+            return run_id, final
+        raise RuntimeError("could not find a free run id")  # pragma: no cover
+    finally:
+        if staging.exists():
+            for child in staging.iterdir():
+                child.unlink()
+            staging.rmdir()
+
+
+def list_runs(root: Path, spec_name: str) -> list[Path]:
+    """Run folders of one spec, oldest first (run ids sort by time)."""
+    runs = root / spec_name / "runs"
+    if not runs.is_dir():
+        return []
+    return sorted(p for p in runs.iterdir() if p.is_dir() and RUN_ID.match(p.name))
+
+
+def all_runs(root: Path) -> list[Path]:
+    if not root.is_dir():
+        return []
+    return [run for spec in sorted(root.iterdir()) if spec.is_dir()
+            for run in list_runs(root, spec.name)]
+
+
+def read_run(folder: Path) -> dict[str, Any]:
+    """Read a run record and check it against its own graph hash (a hand edit is refused)."""
+    path = folder / "run.json"
+    try:
+        record = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError(Problem(str(path), "run record is missing")) from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(Problem(str(path), f"run record is unreadable: {exc}")) from None
+    if not isinstance(record, dict) or "edges" not in record or "graph_sha256" not in record:
+        raise InputError(Problem(str(path), "not a dagmill run record"))
+    if graph_sha256(record["edges"]) != record["graph_sha256"]:
+        raise InputError(Problem(
+            str(path), "record content does not match its graph_sha256: the edges were "
+            "edited by hand; restore the file from version control or re-run the spec",
+            key="edges"))
+    return record
+
+
+def find_twin(root: Path, spec_name: str, input_sha256: str, exclude: str) -> dict | None:
+    """The earliest stored run of the spec with the same input hash, if any."""
+    suffix = input_sha256[:10]
+    for folder in list_runs(root, spec_name):
+        if folder.name == exclude or folder.name.split("-")[1] != suffix:
+            continue
+        try:
+            record = read_run(folder)
+        except InputError:
+            continue
+        if record.get("input_sha256") == input_sha256:
+            return record
+    return None
+
+
+def resolve_run(root: Path, ref: str) -> Path:
+    """A run folder from a run id, a unique prefix of one, or a folder path."""
+    as_path = Path(ref)
+    if as_path.is_dir() and (as_path / "run.json").exists():
+        return as_path
+    matches = [p for p in all_runs(root) if p.name.startswith(ref)] if ref else []
+    exact = [p for p in matches if p.name == ref]
+    if exact:
+        matches = exact
+    if len(matches) == 1:
+        return matches[0]
+    if not matches:
+        raise InputError(Problem(str(root), f"no run matches {ref!r}; `dagmill history SPEC` "
+                                 "or the runs/ folders list the stored runs", key="RUN"))
+    names = ", ".join(p.name for p in matches[:5])
+    raise InputError(Problem(str(root), f"{ref!r} matches {len(matches)} runs ({names}"
+                             f"{', ...' if len(matches) > 5 else ''}); give more of the id",
+                             key="RUN"))
