@@ -6,6 +6,7 @@ The command line calls these functions and only formats what they return.
 from __future__ import annotations
 
 import hashlib
+import math
 import platform
 import time
 from dataclasses import dataclass, field
@@ -24,7 +25,18 @@ from runner.data import Dataset, load_dataset
 from runner.errors import InputError, Problem
 from runner.graph import edges_from_parents, graph_sha256
 from runner.scores import SCORE_EQUIVALENT, build_scorer
-from runner.search import METHODS, Budget, MoveEngine
+from runner.search import (
+    DEFAULT_KICK,
+    DEFAULT_PATIENCE,
+    DEFAULT_TENURE,
+    Budget,
+    MoveEngine,
+    local_search,
+    with_restarts,
+)
+from runner.search.exact import exact_search
+from runner.search.order import order_search
+from runner.search.parent_sets import SearchRefused
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
 from runner.store import find_twin, trace_csv, write_run
 
@@ -96,6 +108,29 @@ def validate(spec_path: str | Path) -> tuple[list[Problem], list[Problem]]:
     return [], prepared.warnings
 
 
+EXHAUSTIVE_METHODS = ("order", "exact")
+
+
+def total_order(spec: Spec, names: tuple[str, ...]) -> list[int]:
+    """The variable order for ``order`` search: ``search.order`` when given, else the
+    tiers in sequence, each tier's variables in the order the spec lists them (the
+    documented refinement of a tier with several variables). Every variable must appear.
+    """
+    index = {n: i for i, n in enumerate(names)}
+    listed = list(spec.search.order) if spec.search.order else [v for t in spec.tiers for v in t]
+    key = "search.order" if spec.search.order else "tiers"
+    missing = [n for n in names if n not in listed]
+    if missing:
+        raise SearchRefused(key, (
+            f"search method 'order' needs a total order of all variables; {key} misses "
+            + ", ".join(repr(m) for m in missing)
+            + ("" if spec.search.order else "; list them in tiers or give search.order")))
+    repeated = sorted({n for n in listed if listed.count(n) > 1})
+    if repeated:
+        raise SearchRefused(key, f"{key} lists {', '.join(map(repr, repeated))} more than once")
+    return [index[n] for n in listed]
+
+
 def input_sha256(spec_hash: str, data_hash: str, version: str) -> str:
     """The hash that names a run's inputs: spec hash, data hash and code version."""
     return hashlib.sha256(f"{spec_hash}\n{data_hash}\n{version}".encode()).hexdigest()
@@ -142,17 +177,56 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
     start = [[] for _ in names]
     for i, j in sorted(prepared.constraints.required):
         start[j].append(i)
-    engine = MoveEngine(scorer, prepared.constraints, start)
-    b = spec.search.budget
+    search = spec.search
+    b = search.budget
     budget = Budget(b.max_steps, b.max_evaluations, b.max_seconds)
-    outcome = METHODS[spec.search.method](engine, budget)
+    rng = np.random.default_rng(np.random.SeedSequence(effective_seed))
+    parameters: dict[str, Any] = {}
+    extra: dict[str, Any] = {}
+    try:
+        if search.method in EXHAUSTIVE_METHODS:
+            if search.method == "order":
+                order = total_order(spec, names)
+                outcome, counts = order_search(scorer, prepared.constraints, order, budget,
+                                               list(names))
+                parameters["order"] = [names[v] for v in order]
+                extra["optimal_for_order"] = outcome.converged
+            else:
+                outcome, counts = exact_search(scorer, prepared.constraints, budget,
+                                               list(names))
+            extra["candidate_sets"] = counts
+            extra["proven_optimal"] = search.method == "exact" and outcome.converged
+            runs = []
+        else:
+            method = local_search(search.method, rng, sample=search.sample,
+                                  tabu_tenure=search.tabu_tenure, patience=search.patience)
+            kick = search.kick or DEFAULT_KICK
+            outcome, runs = with_restarts(
+                method, lambda ps: MoveEngine(scorer, prepared.constraints, ps), start,
+                budget, rng, search.restarts, kick,
+            )
+            parameters["restarts"] = search.restarts
+            if search.restarts:
+                parameters["kick"] = kick
+            if search.method == "tabu":
+                parameters.update(tabu_tenure=search.tabu_tenure or DEFAULT_TENURE,
+                                  patience=search.patience or DEFAULT_PATIENCE)
+            if search.method == "first-ascent":
+                parameters["sample"] = search.sample
+            extra["proven_optimal"] = False
+    except SearchRefused as refused:
+        raise InputError(Problem(prepared.spec_display, refused.message,
+                                 line=spec.line_of(refused.key), key=refused.key)) from None
 
     edges = edges_from_parents(names, outcome.parent_sets)
     families = {names[c]: scorer.family(c, ps) for c, ps in enumerate(outcome.parent_sets)}
+    # The stored total is the exactly rounded sum of the families in column order, the
+    # same whichever method (and summation order) found the graph.
+    total = math.fsum(families[n] for n in names)
     score_block: dict[str, Any] = {
         "name": spec.score.name,
-        "value": outcome.score,
-        "per_row": outcome.score / dataset.rows,
+        "value": total,
+        "per_row": total / dataset.rows,
         "families": families,
         "score_equivalent": spec.score.name in SCORE_EQUIVALENT,
     }
@@ -189,6 +263,13 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
             "evaluations": outcome.evaluations,
             "cache_hits": outcome.cache_hits,
             "converged": outcome.converged,
+            "parameters": parameters,
+            **extra,
+            "runs": [
+                {"run": r.run, "kicks": r.kicks, "start_score": r.start_score,
+                 "end_score": r.end_score, "steps": r.steps, "stop_reason": r.stop_reason}
+                for r in runs
+            ],
             "budget": {"max_steps": b.max_steps, "max_evaluations": b.max_evaluations,
                        "max_seconds": b.max_seconds},
         },

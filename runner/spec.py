@@ -49,7 +49,7 @@ from pydantic import (
 from runner.errors import InputError, Problem
 
 IMPLEMENTED_SCORES = ("loglik", "aic", "bic", "bdeu", "k2")
-IMPLEMENTED_METHODS = ("hill-climb",)
+IMPLEMENTED_METHODS = ("hill-climb", "first-ascent", "stochastic", "tabu", "order", "exact")
 IMPLEMENTED_KINDS = ("discrete",)
 LATER_SECTIONS = ("bootstrap", "fit", "evaluation")
 

@@ -34,26 +34,38 @@ def code_dtype(cells: int) -> type[np.unsignedinteger]:
     return np.uint64
 
 
+# Codes are compacted (renumbered to the occurring configurations) before they could
+# overflow 64 bits; the number of possible configurations is still reported exactly.
+COMPACT_ABOVE = 1 << 62
+
+
 def configuration_codes(
     codes: np.ndarray, arities: np.ndarray, variables: Sequence[int]
-) -> tuple[np.ndarray, int]:
-    """Mixed-radix code of each row's joint state of ``variables``, and the code count.
+) -> tuple[np.ndarray, int, int]:
+    """Mixed-radix code of each row's joint state of ``variables``.
 
-    ``codes`` has shape (n_vars, n_rows). Returns an integer array of length n_rows and
-    the number of possible codes (the product of the arities; 1 for no variables).
+    ``codes`` has shape (n_vars, n_rows). Returns ``(code, bound, possible)``: an integer
+    array of length n_rows with every value below ``bound``, and the number of possible
+    joint states (the product of the arities; 1 for no variables). ``bound`` equals
+    ``possible`` unless the codes had to be renumbered to stay within 64 bits.
     """
     n_rows = codes.shape[1]
-    cells = 1
-    for v in variables:
-        cells *= int(arities[v])
     if not variables:
-        return np.zeros(n_rows, dtype=np.uint8), 1
-    dtype = code_dtype(cells)
-    out = codes[variables[0]].astype(dtype)
+        return np.zeros(n_rows, dtype=np.uint8), 1, 1
+    possible = 1
+    for v in variables:
+        possible *= int(arities[v])
+    bound = int(arities[variables[0]])
+    out = codes[variables[0]].astype(code_dtype(possible if possible < COMPACT_ABOVE else 1 << 64))
     for v in variables[1:]:
-        out *= dtype(arities[v])
+        r = int(arities[v])
+        if bound * r >= COMPACT_ABOVE:
+            occurring, inverse = np.unique(out, return_inverse=True)
+            out, bound = inverse.astype(np.uint64), int(occurring.size)
+        out *= out.dtype.type(r)  # in place: ``out`` is always a fresh array here
         out += codes[v]
-    return out, cells
+        bound *= r
+    return out, bound, possible
 
 
 def family_counts(
@@ -67,15 +79,18 @@ def family_counts(
     """
     r = int(arities[child])
     n_rows = codes.shape[1]
-    parent_code, q = configuration_codes(codes, arities, list(parents))
-    cells = q * r
     if not parents:
         table = np.bincount(codes[child], minlength=r).reshape(1, r)
         return table, 1
+    parent_code, bound, q = configuration_codes(codes, arities, list(parents))
+    if bound * r >= COMPACT_ABOVE:
+        occurring, inverse = np.unique(parent_code, return_inverse=True)
+        parent_code, bound = inverse.astype(np.uint64), int(occurring.size)
+    cells = bound * r
     dtype = code_dtype(cells)
     family_code = parent_code.astype(dtype, copy=False) * dtype(r) + codes[child]
     if cells <= max(DENSE_CELLS_PER_ROW * n_rows, DENSE_CELLS_FLOOR):
-        dense = np.bincount(family_code, minlength=cells).reshape(q, r)
+        dense = np.bincount(family_code, minlength=cells).reshape(bound, r)
         return dense[dense.any(axis=1)], q
     occurring, counts = np.unique(family_code, return_counts=True)
     configs, row_of = np.unique(occurring // r, return_inverse=True)

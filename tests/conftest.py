@@ -1,0 +1,305 @@
+"""Shared fixtures and helpers for the score, move-engine and reference-search tests.
+
+pgmpy is a test-only reference library here: it is imported lazily, inside the fixtures
+and helpers that need it, so tests that do not use it do not pay for its import.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from functools import cache
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import strategies as st
+
+from runner.constraints import Constraints, build_constraints
+from runner.graph import is_acyclic
+from runner.search.engine import KINDS, Move
+
+ParentSets = list[tuple[int, ...]]
+
+ALL_SCORES = ("loglik", "aic", "bic", "bdeu", "k2")
+
+
+# --------------------------------------------------------------------------- encoding
+
+
+def encode(df: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    """``(codes, arities, names)`` of a categorical frame, as the runner encodes data.
+
+    Uses ``runner.data.encode_frame`` when it can be imported; otherwise encodes each
+    column with a pandas Categorical over its sorted string states (the same rule:
+    states are the distinct stripped strings, in sorted order).
+    """
+    try:
+        from runner.data import encode_frame
+    except ImportError:
+        encode_frame = None
+    if encode_frame is not None:
+        dataset = encode_frame(df)
+        return dataset.codes, np.asarray(dataset.arities, dtype=np.int64), list(dataset.names)
+    names = [str(c) for c in df.columns]
+    columns = []
+    arities = []
+    for name in df.columns:
+        values = df[name].astype(str).str.strip()
+        states = sorted(set(values))
+        columns.append(pd.Categorical(values, categories=states).codes.astype(np.uint8))
+        arities.append(len(states))
+    codes = np.ascontiguousarray(np.vstack(columns))
+    return codes, np.asarray(arities, dtype=np.int64), names
+
+
+# --------------------------------------------------------------------------- graphs
+
+
+def random_dag(n: int, rng: np.random.Generator, density: float | None = None) -> ParentSets:
+    """A random DAG on ``n`` nodes: a random order, then each forward pair kept with
+    probability ``density`` (itself drawn from [0.1, 0.6] when not given)."""
+    p = rng.uniform(0.1, 0.6) if density is None else density
+    order = rng.permutation(n)
+    parents: list[list[int]] = [[] for _ in range(n)]
+    for a in range(n):
+        for b in range(a + 1, n):
+            if rng.random() < p:
+                parents[int(order[b])].append(int(order[a]))
+    return [tuple(sorted(ps)) for ps in parents]
+
+
+def parents_of_model(model: Any, names: Sequence[str]) -> ParentSets:
+    """Parent index sets of a pgmpy model (or DAG) in the column order ``names``."""
+    index = {n: i for i, n in enumerate(names)}
+    return [tuple(sorted(index[p] for p in model.get_parents(n))) for n in names]
+
+
+def pgmpy_dag(names: Sequence[str], parent_sets: Sequence[Iterable[int]]) -> Any:
+    """A pgmpy ``DAG`` holding every node (isolated ones too) and the given edges."""
+    from pgmpy.base import DAG
+
+    dag = DAG()
+    dag.add_nodes_from(names)
+    dag.add_edges_from((names[p], names[c]) for c, ps in enumerate(parent_sets) for p in ps)
+    return dag
+
+
+def covered_edges(parent_sets: Sequence[Sequence[int]]) -> list[tuple[int, int]]:
+    """Edges i -> j with pa(j) = pa(i) + {i}: exactly the edges whose reversal keeps the
+    DAG in its Markov equivalence class (Chickering 1995)."""
+    out = []
+    for j, ps in enumerate(parent_sets):
+        for i in ps:
+            if set(ps) == set(parent_sets[i]) | {i}:
+                out.append((i, j))
+    return out
+
+
+def apply_to_parent_sets(parent_sets: Sequence[Sequence[int]], move: Move) -> ParentSets | None:
+    """The parent sets after ``move``, or None when the move does not apply (adding an
+    edge that is there, deleting or reversing one that is not, or a self-loop)."""
+    s, t = move.source, move.target
+    if s == t:
+        return None
+    sets = [set(ps) for ps in parent_sets]
+    if move.kind == "add":
+        if s in sets[t]:
+            return None
+        sets[t].add(s)
+    elif move.kind in ("delete", "reverse"):
+        if s not in sets[t]:
+            return None
+        sets[t].discard(s)
+        if move.kind == "reverse":
+            sets[s].add(t)
+    else:
+        raise ValueError(move.kind)
+    return [tuple(sorted(ps)) for ps in sets]
+
+
+def reference_legal(
+    parent_sets: Sequence[Sequence[int]], constraints: Constraints, move: Move
+) -> bool:
+    """Legality from first principles: the move applies, and the graph it gives is acyclic
+    and honours every constraint."""
+    after = apply_to_parent_sets(parent_sets, move)
+    return after is not None and is_acyclic(after) and constraints.admits(after)
+
+
+def every_move(n: int) -> list[Move]:
+    """Every (kind, source, target) combination on ``n`` nodes, self-loops included."""
+    return [Move(k, s, t) for k in KINDS for s in range(n) for t in range(n)]
+
+
+def relative_gap(a: float, b: float, scale: float | None = None) -> float:
+    """``|a - b|`` relative to ``scale`` (default: the larger magnitude), floored at 1."""
+    reference = max(abs(a), abs(b)) if scale is None else abs(scale)
+    return abs(a - b) / max(1.0, reference)
+
+
+# --------------------------------------------------------------------------- random data
+
+
+def dependent_codes(
+    arities: Sequence[int], n_rows: int, rng: np.random.Generator
+) -> np.ndarray:
+    """Random categorical data (shape n_vars x n_rows, uint8, C-contiguous) with some
+    dependence: each variable copies a random earlier one (mod its arity) in most rows,
+    or is uniform noise, so searches find edges and scores differ between graphs."""
+    n = len(arities)
+    codes = np.empty((n, n_rows), dtype=np.uint8)
+    order = [int(v) for v in rng.permutation(n)]  # the generating order, not column order
+    for k, v in enumerate(order):
+        noise = rng.integers(0, arities[v], size=n_rows)
+        if k > 0 and rng.random() < 0.7:
+            source = order[int(rng.integers(0, k))]
+            keep = rng.random(n_rows) < rng.uniform(0.5, 0.95)
+            codes[v] = np.where(keep, codes[source] % arities[v], noise)
+        else:
+            codes[v] = noise
+    return codes
+
+
+@dataclass(frozen=True)
+class DataCase:
+    codes: np.ndarray
+    arities: np.ndarray
+
+    @property
+    def n_vars(self) -> int:
+        return int(self.codes.shape[0])
+
+    @property
+    def names(self) -> list[str]:
+        return [f"v{i}" for i in range(self.n_vars)]
+
+    def __repr__(self) -> str:  # hypothesis prints this on failure
+        return (f"DataCase(n_vars={self.n_vars}, rows={self.codes.shape[1]}, "
+                f"arities={self.arities.tolist()}, codes={self.codes.tolist()!r})")
+
+
+@st.composite
+def data_cases(
+    draw: st.DrawFn,
+    n_vars: tuple[int, int] = (4, 7),
+    states: tuple[int, int] = (2, 4),
+    rows: tuple[int, int] = (50, 300),
+) -> DataCase:
+    """Random dependent categorical data; arities as declared (a state may be unseen)."""
+    n = draw(st.integers(*n_vars))
+    arities = draw(st.lists(st.integers(*states), min_size=n, max_size=n))
+    n_rows = draw(st.integers(*rows))
+    seed = draw(st.integers(0, 2**32 - 1))
+    codes = dependent_codes(arities, n_rows, np.random.default_rng(seed))
+    return DataCase(codes, np.asarray(arities, dtype=np.int64))
+
+
+# --------------------------------------------------------------------------- constraints
+
+
+@dataclass(frozen=True)
+class ConstraintCase:
+    names: list[str]
+    constraints: Constraints
+    description: dict[str, Any]
+
+    def start(self) -> ParentSets:
+        """The graph of the required edges alone (where the pipeline starts a search)."""
+        sets: list[list[int]] = [[] for _ in self.names]
+        for i, j in sorted(self.constraints.required):
+            sets[j].append(i)
+        return [tuple(sorted(ps)) for ps in sets]
+
+
+@st.composite
+def constraint_cases(draw: st.DrawFn, n: int, trivial_allowed: bool = True) -> ConstraintCase:
+    """Random consistent constraints on ``n`` variables: tiers (some variables untiered),
+    within-tier rule, forbidden pairs, a parent cap, and required edges drawn from the
+    allowed edges so that they form a DAG within the cap."""
+    names = [f"v{i}" for i in range(n)]
+    if trivial_allowed and draw(st.booleans()):
+        return ConstraintCase(names, build_constraints(names), {"trivial": True})
+    n_tiers = draw(st.integers(0, 3))
+    tier_of = draw(st.lists(st.integers(-1, n_tiers - 1), min_size=n, max_size=n))
+    tiers = [[names[v] for v in range(n) if tier_of[v] == t] for t in range(n_tiers)]
+    tiers = [t for t in tiers if t]
+    within = draw(st.sampled_from(["allowed", "forbidden"]))
+    pairs = [(a, b) for a in range(n) for b in range(n) if a != b]
+    forbidden = draw(st.lists(st.sampled_from(pairs), unique=True, max_size=n))
+    # Small caps are drawn often, so that searches and walks run into them.
+    cap = draw(st.one_of(st.none(), st.integers(1, 2), st.integers(1, max(1, n - 1))))
+    base = build_constraints(names, tiers, within, [(names[a], names[b]) for a, b in forbidden],
+                             (), cap)
+    allowed_pairs = [(a, b) for a, b in pairs if base.allowed[a, b]]
+    wanted = draw(st.lists(st.sampled_from(allowed_pairs), unique=True, max_size=n)
+                  if allowed_pairs else st.just([]))
+    required: list[tuple[int, int]] = []
+    sets: list[set[int]] = [set() for _ in range(n)]
+    for a, b in wanted:  # keep a required edge only while the set stays a capped DAG
+        if len(sets[b]) >= base.cap():
+            continue
+        sets[b].add(a)
+        if is_acyclic(sets):
+            required.append((a, b))
+        else:
+            sets[b].discard(a)
+    constraints = build_constraints(
+        names, tiers, within, [(names[a], names[b]) for a, b in forbidden],
+        [(names[a], names[b]) for a, b in required], cap)
+    description = {"tiers": tiers, "within_tier": within, "forbidden": forbidden,
+                   "required": required, "parent_cap": cap}
+    return ConstraintCase(names, constraints, description)
+
+
+# --------------------------------------------------------------------------- reference networks
+
+
+@dataclass(frozen=True)
+class Network:
+    """Data sampled from a pgmpy example network, with its encoding and true graph."""
+
+    name: str
+    frame: pd.DataFrame
+    codes: np.ndarray
+    arities: np.ndarray
+    names: list[str]
+    model: Any
+    true_parents: ParentSets
+
+    def true_edges(self) -> list[tuple[str, str]]:
+        return sorted((self.names[p], self.names[c])
+                      for c, ps in enumerate(self.true_parents) for p in ps)
+
+
+@cache
+def sampled_network(name: str, rows: int, seed: int) -> Network:
+    """``rows`` rows sampled with pgmpy's own forward sampler from the example network
+    ``name`` bundled with pgmpy 1.1.2, cast to strings, and encoded."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FutureWarning)
+        warnings.simplefilter("ignore", DeprecationWarning)
+        from pgmpy.utils import get_example_model
+
+        model = get_example_model(name)
+        frame = model.simulate(rows, seed=seed, show_progress=False).astype(str)
+    # pgmpy's column order follows string hashing (it changes with PYTHONHASHSEED) while
+    # the rows do not; sorted columns make the searches' tie-breaking reproducible.
+    frame = frame[sorted(frame.columns)]
+    codes, arities, names = encode(frame)
+    frame = frame[names]
+    return Network(name, frame, codes, arities, names, model, parents_of_model(model, names))
+
+
+@pytest.fixture(scope="session")
+def asia() -> Network:
+    """5,000 rows from ASIA (Lauritzen & Spiegelhalter 1988), pgmpy's sampler, seed 7."""
+    return sampled_network("asia", 5_000, 7)
+
+
+@pytest.fixture(scope="session")
+def alarm() -> Network:
+    """10,000 rows from ALARM (Beinlich et al. 1989), pgmpy's sampler, seed 11."""
+    return sampled_network("alarm", 10_000, 11)
