@@ -1,6 +1,7 @@
 """The ``dagmill`` command: parses arguments, calls the pipeline, formats the answer.
 
-Exit codes: 0 success; 1 a check failed (a rerun that does not reproduce its twin);
+Exit codes: 0 success; 1 a check failed (a rerun that does not reproduce its twin, a
+gate failure against the baseline, or no baseline to check against);
 2 bad input (spec, data, arguments, unknown run). Human output goes to stdout,
 warnings to stderr; ``--json`` prints one JSON document and nothing else on stdout.
 """
@@ -10,16 +11,26 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+import time
 from collections.abc import Sequence
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from runner import __version__
+from runner import __version__, compare
 from runner.errors import InputError, Problem
 from runner.format import render_table, summary_lines
 from runner.pipeline import run_spec, validate
-from runner.spec import spec_json_schema
-from runner.store import read_run, resolve_run, results_root
+from runner.spec import load_spec, spec_json_schema
+from runner.store import (
+    atomic_write_text,
+    list_runs,
+    read_baseline,
+    read_run,
+    resolve_run,
+    results_root,
+    write_baseline,
+)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -47,6 +58,30 @@ def _parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("show", help="a stored run's summary")
     p.add_argument("run", metavar="RUN")
+    p.add_argument("--results")
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("compare", help="two runs side by side: scores, edges, distances")
+    p.add_argument("run_a", metavar="RUN_A")
+    p.add_argument("run_b", metavar="RUN_B")
+    p.add_argument("--data", help="rescore on this CSV even if its hash differs from the runs'")
+    p.add_argument("--results")
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("pin", help="make RUN the baseline of its spec")
+    p.add_argument("run", metavar="RUN")
+    p.add_argument("--results")
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("check", help="re-learn specs and hold them against their baselines")
+    p.add_argument("specs", nargs="+", metavar="SPEC")
+    p.add_argument("--data", help="a new data drop (same columns) to learn on")
+    p.add_argument("--junit", metavar="FILE", help="write a JUnit XML report here")
+    p.add_argument("--results")
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("history", help="the runs of a spec, oldest first")
+    p.add_argument("spec", metavar="SPEC", help="a spec file or a spec name")
     p.add_argument("--results")
     p.add_argument("--json", action="store_true")
 
@@ -128,6 +163,126 @@ def _cmd_show(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_compare(args: argparse.Namespace) -> int:
+    root = results_root(args.results)
+    a, b = (read_run(resolve_run(root, ref)) for ref in (args.run_a, args.run_b))
+    if a["spec_name"] != b["spec_name"]:
+        print(f"warning: comparing runs of two different specs ({a['spec_name']!r} and "
+              f"{b['spec_name']!r}); inputs and scores may not be comparable", file=sys.stderr)
+    rescored = None
+    if compare.needs_rescore(a, b) or (args.data is not None
+                                       and not compare.score_delta(a, b)["comparable"]):
+        try:
+            rescored = {
+                "a_under_b": compare.rescore(a, b["score"]["name"], b["score"].get("ess") or 1.0,
+                                             args.data),
+                "b_under_a": compare.rescore(b, a["score"]["name"], a["score"].get("ess") or 1.0,
+                                             args.data),
+            }
+        except InputError as exc:
+            reason = "; ".join(p.format() for p in exc.problems)
+            print(f"warning: not rescored: {reason}", file=sys.stderr)
+            rescored = {"skipped": reason}
+    result = compare.compare_records(a, b, rescored)
+    if args.json:
+        print(json.dumps(result, indent=2, sort_keys=True))
+    else:
+        print("\n".join(compare.compare_lines(result)))
+    return 0
+
+
+def _cmd_pin(args: argparse.Namespace) -> int:
+    root = results_root(args.results)
+    folder = resolve_run(root, args.run)
+    record = read_run(folder)
+    stamp = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    new, old, path = write_baseline(root, record, stamp)
+    changes = compare.baseline_changes(old, new)
+    if args.json:
+        print(json.dumps({"baseline": str(path), "run_id": new["run_id"],
+                          "replaced": None if old is None else old["run_id"],
+                          "changes": changes}, indent=2, sort_keys=True))
+    else:
+        print(f"pinned {new['run_id']} as the baseline of {new['spec_name']} ({path})")
+        print("\n".join(f"  {line}" for line in changes))
+    return 0
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    root = results_root(args.results)
+    if args.data is not None and len(args.specs) > 1:
+        raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
+    reports, seconds, texts = [], {}, []
+    for spec in args.specs:
+        started = time.perf_counter()
+        result = run_spec(spec, root, data_path=args.data)
+        if not args.json:
+            _warn(result.warnings)
+        record = result.record
+        baseline = read_baseline(root, record["spec_name"])
+        if baseline is None:
+            pin = f"dagmill pin {result.run_id} --results {root}"
+            report = compare.missing_baseline_report(record, pin)
+        else:
+            pinned = root / record["spec_name"] / "runs" / baseline["run_id"]
+            if pinned.is_dir():
+                read_run(pinned)  # refuses a hand-edited baseline run (exit 2)
+            report = compare.evaluate_gate(baseline, record, record["spec"]["gate"])
+        report["folder"] = str(result.folder)
+        seconds[record["spec_name"]] = time.perf_counter() - started
+        reports.append(report)
+        texts.append(compare.check_table(report))
+    ok = all(r["ok"] for r in reports)
+    if args.junit:
+        atomic_write_text(Path(args.junit), compare.junit_xml(reports, seconds))
+    if args.json:
+        print(json.dumps({"ok": ok, "checks": reports}, indent=2, sort_keys=True))
+    else:
+        print("\n\n".join(texts))
+        print(f"\n{sum(r['ok'] for r in reports)} of {len(reports)} check(s) passed")
+    return 0 if ok else 1
+
+
+def _spec_name(ref: str) -> str:
+    path = Path(ref)
+    if path.is_file():
+        return load_spec(path).name
+    return ref
+
+
+def _cmd_history(args: argparse.Namespace) -> int:
+    root = results_root(args.results)
+    name = _spec_name(args.spec)
+    folders = list_runs(root, name)
+    if not folders:
+        raise InputError(Problem(str(root), f"no stored runs of spec {name!r}", key="SPEC"))
+    baseline = read_baseline(root, name)
+    records = []
+    for folder in folders:
+        try:
+            records.append(read_run(folder))
+        except InputError as exc:
+            _warn([Problem(p.file, p.message, p.line, p.key, severity="warning")
+                   for p in exc.problems])
+            records.append(None)
+    rows = compare.history_rows(records, [f.name for f in folders],
+                                None if baseline is None else baseline["run_id"])
+    if args.json:
+        print(json.dumps({"spec": name, "runs": rows}, indent=2, sort_keys=True))
+        return 0
+    table = [["*" if r["baseline"] else "", r.get("time") or "-", r["run_id"],
+              "REFUSED" if r["refused"] else r["data_sha256"],
+              "" if r["refused"] else str(r["rows"]), r.get("code_version", ""),
+              "" if r["refused"] else f"{r['score']} {r['per_row']:.6f}",
+              "" if r["refused"] else str(r["edges"]),
+              "-" if r.get("shd_previous") is None else str(r["shd_previous"])] for r in rows]
+    print(render_table(["base", "time", "run", "data", "rows", "code", "score/row", "edges",
+                        "shd prev"], table))
+    if baseline is None:
+        print(f"no baseline; pin one with: dagmill pin RUN --results {root}")
+    return 0
+
+
 def _cmd_schema(args: argparse.Namespace) -> int:
     print(json.dumps(spec_json_schema(), indent=2, sort_keys=True))
     return 0
@@ -151,7 +306,8 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 
 
 COMMANDS = {"validate": _cmd_validate, "run": _cmd_run, "show": _cmd_show,
-            "schema": _cmd_schema, "demo": _cmd_demo}
+            "compare": _cmd_compare, "pin": _cmd_pin, "check": _cmd_check,
+            "history": _cmd_history, "schema": _cmd_schema, "demo": _cmd_demo}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

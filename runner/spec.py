@@ -772,7 +772,9 @@ def _later_sections(spec: Spec, where: _Where) -> list[Problem]:
         where.problem(name, f"'{name}' is not available in this version of dagmill; "
                       "available sections: " + ", ".join(available))
         for name in LATER_SECTIONS if where.raw.get(name) is not None
-    ]
+    ] + ([where.problem("gate.on", "gating on 'consensus' needs bootstrap, which is not "
+                        "available in this version of dagmill; use 'run'", value="consensus")]
+         if spec.gate.on == "consensus" else [])
 
 
 def _column_rules(spec: Spec, where: _Where) -> list[Problem]:

@@ -156,6 +156,9 @@ def resolve_run(root: Path, ref: str) -> Path:
     as_path = Path(ref)
     if as_path.is_dir() and (as_path / "run.json").exists():
         return as_path
+    if ("/" in ref or os.sep in ref) and not as_path.exists():
+        raise InputError(Problem(ref, "run folder does not exist (deleted or moved?); "
+                                 "`dagmill history SPEC` lists the stored runs", key="RUN"))
     matches = [p for p in all_runs(root) if p.name.startswith(ref)] if ref else []
     exact = [p for p in matches if p.name == ref]
     if exact:
@@ -169,3 +172,69 @@ def resolve_run(root: Path, ref: str) -> Path:
     raise InputError(Problem(str(root), f"{ref!r} matches {len(matches)} runs ({names}"
                              f"{', ...' if len(matches) > 5 else ''}); give more of the id",
                              key="RUN"))
+
+
+# --------------------------------------------------------------------------- baselines
+
+BASELINE_FILE = "baseline.json"
+
+
+def baseline_path(root: Path, spec_name: str) -> Path:
+    return root / spec_name / BASELINE_FILE
+
+
+def baseline_from_record(record: dict[str, Any], pinned_utc: str) -> dict[str, Any]:
+    """The baseline document of a run: its id and hashes, score, edges and data columns
+    (the columns let ``check`` report state changes even when the run folder is gone)."""
+    score = record["score"]
+    data = record["data"]
+    return {
+        "run_id": record["run_id"],
+        "spec_name": record["spec_name"],
+        "spec_sha256": record["spec_sha256"],
+        "input_sha256": record["input_sha256"],
+        "code_version": record["code_version"],
+        "graph_sha256": record["graph_sha256"],
+        "score": {"name": score["name"], "ess": score.get("ess"), "value": score["value"],
+                  "per_row": score["per_row"]},
+        "edges": [list(e) for e in record["edges"]],
+        "data": {"sha256": data["sha256"], "rows": data["rows"],
+                 "columns": {n: {"kind": c["kind"], "states": list(c["states"])}
+                             for n, c in data["columns"].items()}},
+        "pinned_utc": pinned_utc,
+    }
+
+
+def read_baseline(root: Path, spec_name: str) -> dict[str, Any] | None:
+    """The spec's baseline, or None when none is pinned; a baseline whose edges do not
+    match its graph hash, or that is unreadable, is refused (InputError)."""
+    path = baseline_path(root, spec_name)
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        return None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(Problem(str(path), f"baseline is unreadable: {exc}")) from None
+    needed = ("run_id", "input_sha256", "graph_sha256", "score", "edges", "data")
+    if not isinstance(doc, dict) or any(k not in doc for k in needed):
+        raise InputError(Problem(str(path), "not a dagmill baseline (re-pin with `dagmill pin "
+                                 "RUN`)"))
+    if graph_sha256(doc["edges"]) != doc["graph_sha256"]:
+        raise InputError(Problem(str(path), "baseline content does not match its graph_sha256: "
+                                 "the edges were edited by hand; restore it from version "
+                                 "control or re-pin with `dagmill pin RUN`", key="edges"))
+    return doc
+
+
+def write_baseline(root: Path, record: dict[str, Any],
+                   pinned_utc: str) -> tuple[dict[str, Any], dict[str, Any] | None, Path]:
+    """Make ``record`` the baseline of its spec (atomically); return the new baseline,
+    the one it replaced (None if none; an unreadable old one is replaced too) and the path."""
+    try:
+        old = read_baseline(root, record["spec_name"])
+    except InputError:
+        old = None
+    new = baseline_from_record(record, pinned_utc)
+    path = baseline_path(root, record["spec_name"])
+    atomic_write_text(path, dump_json(new))
+    return new, old, path

@@ -305,8 +305,6 @@ def test_sparse_and_dense_paths_agree(case: tuple[np.ndarray, np.ndarray, int, l
     assert q_dense == q_sparse
     np.testing.assert_array_equal(dense, sparse)
 
-
-
 def test_family_counts_past_uint64_cells() -> None:
     """64 binary parents and a binary child make 2**65 family cells, more than uint64
     holds. Two rows that differ in parent 0 (and the child) are two configurations; the
@@ -321,6 +319,18 @@ def test_family_counts_past_uint64_cells() -> None:
     except (ValueError, OverflowError):
         return
     np.testing.assert_array_equal(table, [[1, 0], [0, 1]])
+
+
+@settings(max_examples=30, deadline=None)
+@given(case=family_cases(states=(40, 60), n_parents=(12, 14), rows=(1, 120)))
+def test_family_counts_past_64_bits_equals_crosstab(
+    case: tuple[np.ndarray, np.ndarray, int, list[int]],
+) -> None:
+    """More possible family cells than 64 bits hold (at least 40**13 > 2**69): the counts
+    still equal the crosstab, and q is still the exact product."""
+    codes, arities, child, parents = case
+    assert math.prod(int(arities[p]) for p in [*parents, child]) > 2**64
+    check_counts(codes, arities, child, parents)
 
 
 # --------------------------------------------------------------------------- the cache

@@ -128,9 +128,9 @@ def test_minimal_spec_fills_every_default(tmp_path: Path) -> None:
 
 def test_yaml_words_like_on_and_yes_stay_text(tmp_path: Path) -> None:
     spec = load_spec(write(tmp_path, BASE + "tiers:\n  - [yes, no]\n  - [on, off]\n"
-                                           "gate:\n  on: consensus\n  score_tolerance: 1e-6\n"))
+                                           "gate:\n  on: run\n  score_tolerance: 1e-6\n"))
     assert spec.tiers == [["yes", "no"], ["on", "off"]]
-    assert spec.gate.on == "consensus"
+    assert spec.gate.on == "run"
     assert spec.gate.score_tolerance == 1e-6
 
 
