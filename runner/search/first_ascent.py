@@ -12,11 +12,13 @@ Complexity per step: O(n^2) to list the legal moves; the scan stops at the first
 
 from __future__ import annotations
 
+from functools import partial
+
 import numpy as np
 
 from runner.search.budget import Budget
-from runner.search.engine import MoveEngine
-from runner.search.result import SearchOutcome, TraceRow, outcome_from
+from runner.search.engine import Move, MoveEngine
+from runner.search.result import SearchOutcome, climb
 
 
 def sample_size(sample: float | int | None, total: int) -> int:
@@ -28,28 +30,24 @@ def sample_size(sample: float | int | None, total: int) -> int:
     return max(1, min(total, sample))
 
 
+def first_improving_move(engine: MoveEngine, rng: np.random.Generator,
+                         sample: float | int | None = None) -> Move | None:
+    """The first improving move in a fresh random order, the sampled share tried first."""
+    moves = engine.legal_moves()
+    order = rng.permutation(len(moves))
+    k = sample_size(sample, len(moves))
+    tolerance = engine.tolerance()
+    for part in (order[:k], order[k:]):
+        first = next((moves[i][0] for i in part if moves[i][1] > tolerance), None)
+        if first is not None:
+            return first
+    return None
+
+
 def first_ascent(
     engine: MoveEngine,
     budget: Budget,
     rng: np.random.Generator,
     sample: float | int | None = None,
 ) -> SearchOutcome:
-    trace: list[TraceRow] = []
-    steps = 0
-    while True:
-        reason = budget.exhausted(steps, engine.scorer.evaluations)
-        if reason is not None:
-            return outcome_from(engine, budget, steps, trace, reason)
-        moves = engine.legal_moves()
-        order = rng.permutation(len(moves))
-        k = sample_size(sample, len(moves))
-        tolerance = engine.tolerance()
-        first = next((moves[i][0] for i in order[:k] if moves[i][1] > tolerance), None)
-        if first is None:
-            first = next((moves[i][0] for i in order[k:] if moves[i][1] > tolerance), None)
-        if first is None:
-            return outcome_from(engine, budget, steps, trace, "local_optimum")
-        delta = engine.apply(first)
-        steps += 1
-        trace.append(TraceRow(steps, first.kind, first.source, first.target, delta,
-                              engine.score))
+    return climb(engine, budget, partial(first_improving_move, rng=rng, sample=sample))

@@ -13,22 +13,18 @@ scores to refresh the one or two changed columns.
 from __future__ import annotations
 
 from runner.search.budget import Budget
-from runner.search.engine import MoveEngine
-from runner.search.result import SearchOutcome, TraceRow, outcome_from
+from runner.search.engine import Move, MoveEngine
+from runner.search.result import SearchOutcome, climb
+
+
+def steepest_move(engine: MoveEngine) -> Move | None:
+    """The best-improving legal move, or None when no move improves."""
+    choice = engine.best_move()
+    if choice is None or choice[1] <= engine.tolerance():
+        return None
+    return choice[0]
 
 
 def hill_climb(engine: MoveEngine, budget: Budget) -> SearchOutcome:
     """Greedy best-improvement hill climbing from the engine's current graph."""
-    trace: list[TraceRow] = []
-    steps = 0
-    while True:
-        reason = budget.exhausted(steps, engine.scorer.evaluations)
-        if reason is not None:
-            return outcome_from(engine, budget, steps, trace, reason)
-        choice = engine.best_move()
-        if choice is None or choice[1] <= engine.tolerance():
-            return outcome_from(engine, budget, steps, trace, "local_optimum")
-        move, _ = choice
-        delta = engine.apply(move)
-        steps += 1
-        trace.append(TraceRow(steps, move.kind, move.source, move.target, delta, engine.score))
+    return climb(engine, budget, steepest_move)

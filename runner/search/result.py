@@ -6,8 +6,10 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
+    from collections.abc import Callable
+
     from runner.search.budget import Budget
-    from runner.search.engine import MoveEngine
+    from runner.search.engine import Move, MoveEngine
 
 
 @dataclass(frozen=True)
@@ -49,3 +51,21 @@ def outcome_from(engine: MoveEngine, budget: Budget, steps: int, trace: list[Tra
         seconds=budget.elapsed(),
         trace=trace,
     )
+
+
+def climb(engine: MoveEngine, budget: Budget,
+          choose: Callable[[MoveEngine], Move | None]) -> SearchOutcome:
+    """The loop every improving local search shares: until the budget runs out, ask
+    ``choose`` for a move (None at a local optimum), apply it and trace it."""
+    trace: list[TraceRow] = []
+    steps = 0
+    while True:
+        reason = budget.exhausted(steps, engine.scorer.evaluations)
+        if reason is not None:
+            return outcome_from(engine, budget, steps, trace, reason)
+        move = choose(engine)
+        if move is None:
+            return outcome_from(engine, budget, steps, trace, "local_optimum")
+        delta = engine.apply(move)
+        steps += 1
+        trace.append(TraceRow(steps, move.kind, move.source, move.target, delta, engine.score))

@@ -10,28 +10,26 @@ Complexity per step: O(n^2) to collect the improving moves from the delta table.
 
 from __future__ import annotations
 
+from functools import partial
+
 import numpy as np
 
 from runner.search.budget import Budget
-from runner.search.engine import MoveEngine
-from runner.search.result import SearchOutcome, TraceRow, outcome_from
+from runner.search.engine import Move, MoveEngine
+from runner.search.result import SearchOutcome, climb
+
+
+def weighted_improving_move(engine: MoveEngine, rng: np.random.Generator) -> Move | None:
+    """An improving legal move drawn with probability proportional to its gain."""
+    tolerance = engine.tolerance()
+    improving = [(m, d) for m, d in engine.legal_moves() if d > tolerance]
+    if not improving:
+        return None
+    gains = np.array([d for _, d in improving])
+    return improving[int(rng.choice(len(improving), p=gains / gains.sum()))][0]
 
 
 def stochastic_hill_climb(
     engine: MoveEngine, budget: Budget, rng: np.random.Generator
 ) -> SearchOutcome:
-    trace: list[TraceRow] = []
-    steps = 0
-    while True:
-        reason = budget.exhausted(steps, engine.scorer.evaluations)
-        if reason is not None:
-            return outcome_from(engine, budget, steps, trace, reason)
-        tolerance = engine.tolerance()
-        improving = [(m, d) for m, d in engine.legal_moves() if d > tolerance]
-        if not improving:
-            return outcome_from(engine, budget, steps, trace, "local_optimum")
-        gains = np.array([d for _, d in improving])
-        move = improving[int(rng.choice(len(improving), p=gains / gains.sum()))][0]
-        delta = engine.apply(move)
-        steps += 1
-        trace.append(TraceRow(steps, move.kind, move.source, move.target, delta, engine.score))
+    return climb(engine, budget, partial(weighted_improving_move, rng=rng))
