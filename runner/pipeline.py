@@ -188,12 +188,18 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
             if search.method == "order":
                 order = total_order(spec, names)
                 outcome, counts = order_search(scorer, prepared.constraints, order, budget,
-                                               list(names))
+                                               list(names), limit=search.max_candidate_sets)
                 parameters["order"] = [names[v] for v in order]
+                parameters["max_candidate_sets"] = search.max_candidate_sets
                 extra["optimal_for_order"] = outcome.converged
             else:
-                outcome, counts = exact_search(scorer, prepared.constraints, budget,
-                                               list(names))
+                outcome, counts = exact_search(
+                    scorer, prepared.constraints, budget, list(names),
+                    variable_limit=search.max_variables,
+                    candidate_limit=search.max_candidate_sets)
+            if search.method == "exact":
+                parameters.update(max_variables=search.max_variables,
+                                  max_candidate_sets=search.max_candidate_sets)
             extra["candidate_sets"] = counts
             extra["proven_optimal"] = search.method == "exact" and outcome.converged
             runs = []

@@ -186,6 +186,12 @@ class SearchSpec(_Section):
         "per step.")
     order: list[Variable] | None = Field(
         None, description="order only: a total order of all variables.")
+    max_variables: PositiveCount = Field(
+        20, description="exact only: most variables exact search takes on (it needs 2^n "
+        "memory).")
+    max_candidate_sets: PositiveCount = Field(
+        1_000_000, description="order and exact: most candidate parent sets scored per "
+        "variable.")
     budget: BudgetSpec = Field(default_factory=BudgetSpec, description="Stopping limits.")
 
 
@@ -817,6 +823,9 @@ _IGNORED_UNLESS: tuple[tuple[str, Callable[[SearchSpec], bool], str], ...] = (
      "only applies to search method 'first-ascent'"),
     ("order", lambda s: s.method != "order", "only applies to search method 'order'"),
     ("kick", lambda s: s.restarts == 0, "only applies when restarts is above 0"),
+    ("max_variables", lambda s: s.method != "exact", "only applies to search method 'exact'"),
+    ("max_candidate_sets", lambda s: s.method not in ("order", "exact"),
+     "only applies to search methods 'order' and 'exact'"),
 )
 
 

@@ -176,6 +176,11 @@ ORDER_CASES = {
     "negative tenure": ("method: tabu\n  tabu_tenure: 0", ["tabu_tenure"]),
     "sample out of range": ("method: first-ascent\n  sample: 1.5", ["sample"]),
     "negative restarts": ("restarts: -1", ["restarts"]),
+    "exact over its variable limit": ("method: exact\n  max_variables: 3",
+                                      ["search.method", "limit 3", "GiB"]),
+    "order over its candidate limit": ("method: order\n  order: [a, b, c, d]\n"
+                                       "  max_candidate_sets: 4", ["candidate parent sets",
+                                                                   "4"]),
 }
 
 
