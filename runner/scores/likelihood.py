@@ -21,10 +21,14 @@ import numpy as np
 
 
 def log_likelihood(table: np.ndarray) -> float:
-    """Maximised log-likelihood of a family's count table (rows: configurations)."""
-    counts = table[table > 0].astype(np.float64)
-    row_totals = np.repeat(table.sum(axis=1), (table > 0).sum(axis=1)).astype(np.float64)
-    return float(np.sum(counts * np.log(counts / row_totals)))
+    """Maximised log-likelihood of a family's count table (rows: configurations).
+
+    Computed as sum_jk N_jk ln N_jk - sum_j N_j ln N_j, over non-zero counts only.
+    """
+    cells = table[table > 0].astype(np.float64)
+    rows = table.sum(axis=1).astype(np.float64)
+    rows = rows[rows > 0]
+    return float(np.dot(cells, np.log(cells)) - np.dot(rows, np.log(rows)))
 
 
 def free_parameters(q: int, r: int) -> int:
