@@ -85,12 +85,14 @@ def oracle_hill_climb(codes: np.ndarray, arities: np.ndarray, constraints: Const
         total = sum(fresh_family(codes, arities, c, parents[c]) for c in range(n))
         if not deltas:
             return parents
+        tolerance = RELATIVE_TOLERANCE * max(1.0, abs(total))
         best = max(deltas.values())
-        if best <= RELATIVE_TOLERANCE * max(1.0, abs(total)):
-            return parents
-        # same tie-break as the engine: kind order, then source, then target
-        move = min((m for m, d in deltas.items() if d == best),
+        # same rule as the engine: deltas within the tolerance of the best are tied, and
+        # ties go by kind order, then source, then target
+        move = min((m for m, d in deltas.items() if d >= best - tolerance),
                    key=lambda m: (KINDS.index(m.kind), m.source, m.target))
+        if deltas[move] <= tolerance:
+            return parents
         after = applied(parents, move)
         assert after is not None
         parents = after

@@ -35,7 +35,7 @@ def local_search(
 ) -> LocalSearch:
     """The local search called ``method`` with its parameters bound."""
     if method == "hill-climb":
-        return hill_climb
+        return partial(hill_climb, rng=rng)
     if method == "first-ascent":
         return partial(first_ascent, rng=rng, sample=sample)
     if method == "stochastic":

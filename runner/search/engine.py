@@ -163,21 +163,28 @@ class MoveEngine:
         masks = dict(zip(KINDS, self.legal_masks(), strict=True))
         return bool(masks[move.kind][move.source, move.target])
 
-    def best_move(self, exclude: Iterable[Move] = ()) -> tuple[Move, float] | None:
-        """The legal move with the largest delta, ``exclude`` aside; ties go to the first
-        kind in ``KINDS`` (add, delete, reverse), then the lowest source, then target."""
+    def best_move(self, exclude: Iterable[Move] = (),
+                  rng: np.random.Generator | None = None) -> tuple[Move, float] | None:
+        """The legal move with the largest delta, ``exclude`` aside.
+
+        Deltas within the tolerance of the largest count as tied: the score-equivalent
+        pair X -> Y and Y -> X, say, differ only by rounding. Ties go to the first kind in
+        ``KINDS`` (add, delete, reverse), then the lowest source, then the lowest target,
+        so the choice follows this rule and not the last bits of a sum.
+        """
         tables = self.delta_tables()
         for move in exclude:
             tables[KINDS.index(move.kind)][move.source, move.target] = -np.inf
         best = max(float(t.max()) if t.size else -np.inf for t in tables)
         if not np.isfinite(best):
             return None
-        for kind, table in zip(KINDS, tables, strict=True):
-            hits = np.flatnonzero(table == best)
-            if hits.size:
-                s, t = divmod(int(hits[0]), self.n)
-                return Move(kind, s, t), best
-        return None  # pragma: no cover - best came from one of the tables
+        near = best - self.tolerance()
+        tied = [(kind, int(h)) for kind, table in zip(KINDS, tables, strict=True)
+                for h in np.flatnonzero(table >= near)]
+        kind, flat = tied[0] if rng is None or len(tied) == 1 else tied[
+            int(rng.integers(len(tied)))]
+        s, t = divmod(flat, self.n)
+        return Move(kind, s, t), float(tables[KINDS.index(kind)][s, t])
 
     # -- applying moves --------------------------------------------------------------
     def apply(self, move: Move) -> float:
