@@ -24,13 +24,15 @@ from runner.constraints import Constraints, build_constraints
 from runner.data import Dataset, load_dataset
 from runner.errors import InputError, Problem
 from runner.graph import edges_from_parents, graph_sha256
-from runner.scores import SCORE_EQUIVALENT, build_scorer
+from runner.scores import SCORE_EQUIVALENT, FamilyScorer, build_scorer
 from runner.search import (
     DEFAULT_KICK,
     DEFAULT_PATIENCE,
     DEFAULT_TENURE,
     Budget,
     MoveEngine,
+    RunSummary,
+    SearchOutcome,
     local_search,
     with_restarts,
 )
@@ -108,9 +110,6 @@ def validate(spec_path: str | Path) -> tuple[list[Problem], list[Problem]]:
     return [], prepared.warnings
 
 
-EXHAUSTIVE_METHODS = ("order", "exact")
-
-
 def total_order(spec: Spec, names: tuple[str, ...]) -> list[int]:
     """The variable order for ``order`` search: ``search.order`` when given, else the
     tiers in sequence, each tier's variables in the order the spec lists them (the
@@ -163,6 +162,48 @@ class RunResult:
                 and self.twin["score"]["value"] == self.record["score"]["value"])
 
 
+def run_search(
+    prepared: Prepared, scorer: FamilyScorer, budget: Budget, rng: np.random.Generator
+) -> tuple[SearchOutcome, list[RunSummary], dict[str, Any], dict[str, Any]]:
+    """Run the spec's search method; return its outcome, the runs of a restarted local
+    search, the method's parameters and any extra record fields."""
+    search, names, constraints = prepared.spec.search, prepared.dataset.names, prepared.constraints
+    parameters: dict[str, Any] = {}
+    if search.method == "order":
+        order = total_order(prepared.spec, names)
+        outcome, counts = order_search(scorer, constraints, order, budget, list(names),
+                                       limit=search.max_candidate_sets)
+        parameters.update(order=[names[v] for v in order],
+                          max_candidate_sets=search.max_candidate_sets)
+        return outcome, [], parameters, {"candidate_sets": counts, "proven_optimal": False,
+                                         "optimal_for_order": outcome.converged}
+    if search.method == "exact":
+        outcome, counts = exact_search(scorer, constraints, budget, list(names),
+                                       variable_limit=search.max_variables,
+                                       candidate_limit=search.max_candidate_sets)
+        parameters.update(max_variables=search.max_variables,
+                          max_candidate_sets=search.max_candidate_sets)
+        return outcome, [], parameters, {"candidate_sets": counts,
+                                         "proven_optimal": outcome.converged}
+    start: list[list[int]] = [[] for _ in names]
+    for i, j in sorted(constraints.required):
+        start[j].append(i)
+    method = local_search(search.method, rng, sample=search.sample,
+                          tabu_tenure=search.tabu_tenure, patience=search.patience)
+    kick = search.kick or DEFAULT_KICK
+    outcome, runs = with_restarts(method, lambda ps: MoveEngine(scorer, constraints, ps), start,
+                                  budget, rng, search.restarts, kick)
+    parameters["restarts"] = search.restarts
+    if search.restarts:
+        parameters["kick"] = kick
+    if search.method == "tabu":
+        parameters.update(tabu_tenure=search.tabu_tenure or DEFAULT_TENURE,
+                          patience=search.patience or DEFAULT_PATIENCE)
+    if search.method == "first-ascent":
+        parameters["sample"] = search.sample
+    return outcome, runs, parameters, {"proven_optimal": False}
+
+
 def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], str]:
     """Learn the structure of a prepared spec; return the record (without run id) and trace."""
     started = time.perf_counter()
@@ -174,52 +215,12 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
     inputs = input_sha256(spec_hash, dataset.sha256, version)
 
     scorer = build_scorer(spec.score.name, dataset.codes, dataset.arities, ess=spec.score.ess)
-    start = [[] for _ in names]
-    for i, j in sorted(prepared.constraints.required):
-        start[j].append(i)
     search = spec.search
     b = search.budget
     budget = Budget(b.max_steps, b.max_evaluations, b.max_seconds)
     rng = np.random.default_rng(np.random.SeedSequence(effective_seed))
-    parameters: dict[str, Any] = {}
-    extra: dict[str, Any] = {}
     try:
-        if search.method in EXHAUSTIVE_METHODS:
-            if search.method == "order":
-                order = total_order(spec, names)
-                outcome, counts = order_search(scorer, prepared.constraints, order, budget,
-                                               list(names), limit=search.max_candidate_sets)
-                parameters["order"] = [names[v] for v in order]
-                parameters["max_candidate_sets"] = search.max_candidate_sets
-                extra["optimal_for_order"] = outcome.converged
-            else:
-                outcome, counts = exact_search(
-                    scorer, prepared.constraints, budget, list(names),
-                    variable_limit=search.max_variables,
-                    candidate_limit=search.max_candidate_sets)
-            if search.method == "exact":
-                parameters.update(max_variables=search.max_variables,
-                                  max_candidate_sets=search.max_candidate_sets)
-            extra["candidate_sets"] = counts
-            extra["proven_optimal"] = search.method == "exact" and outcome.converged
-            runs = []
-        else:
-            method = local_search(search.method, rng, sample=search.sample,
-                                  tabu_tenure=search.tabu_tenure, patience=search.patience)
-            kick = search.kick or DEFAULT_KICK
-            outcome, runs = with_restarts(
-                method, lambda ps: MoveEngine(scorer, prepared.constraints, ps), start,
-                budget, rng, search.restarts, kick,
-            )
-            parameters["restarts"] = search.restarts
-            if search.restarts:
-                parameters["kick"] = kick
-            if search.method == "tabu":
-                parameters.update(tabu_tenure=search.tabu_tenure or DEFAULT_TENURE,
-                                  patience=search.patience or DEFAULT_PATIENCE)
-            if search.method == "first-ascent":
-                parameters["sample"] = search.sample
-            extra["proven_optimal"] = False
+        outcome, runs, parameters, extra = run_search(prepared, scorer, budget, rng)
     except SearchRefused as refused:
         raise InputError(Problem(prepared.spec_display, refused.message,
                                  line=spec.line_of(refused.key), key=refused.key)) from None
