@@ -19,6 +19,7 @@ from typing import Any
 
 from runner import __version__, compare
 from runner.errors import InputError, Problem
+from runner.export import FORMATS, export
 from runner.format import render_table, summary_lines
 from runner.pipeline import run_spec, validate
 from runner.spec import load_spec, spec_json_schema
@@ -86,6 +87,12 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
 
     sub.add_parser("schema", help="print the spec's JSON Schema")
+
+    p = sub.add_parser("export", help="a run's learned graph as GraphML, DOT or JSON")
+    p.add_argument("run", metavar="RUN")
+    p.add_argument("--format", required=True, choices=FORMATS)
+    p.add_argument("--out", metavar="FILE", help="write here instead of stdout")
+    p.add_argument("--results")
 
     p = sub.add_parser("demo", help="copy the kiln-line scenario into DIR and run it")
     p.add_argument("dir", nargs="?", default="dagmill-demo", metavar="DIR")
@@ -283,6 +290,21 @@ def _cmd_history(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_export(args: argparse.Namespace) -> int:
+    record = read_run(resolve_run(results_root(args.results), args.run))
+    text = export(record, args.format)
+    if args.out is None:
+        sys.stdout.write(text)
+        return 0
+    out = Path(args.out)
+    if not out.parent.is_dir():
+        raise InputError(Problem(str(out), f"folder {str(out.parent)!r} does not exist",
+                                 key="--out"))
+    atomic_write_text(out, text)
+    print(f"wrote {out}")
+    return 0
+
+
 def _cmd_schema(args: argparse.Namespace) -> int:
     print(json.dumps(spec_json_schema(), indent=2, sort_keys=True))
     return 0
@@ -305,7 +327,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     return 0
 
 
-COMMANDS = {"validate": _cmd_validate, "run": _cmd_run, "show": _cmd_show,
+COMMANDS = {"export": _cmd_export, "validate": _cmd_validate, "run": _cmd_run, "show": _cmd_show,
             "compare": _cmd_compare, "pin": _cmd_pin, "check": _cmd_check,
             "history": _cmd_history, "schema": _cmd_schema, "demo": _cmd_demo}
 

@@ -1,0 +1,75 @@
+"""A stored run's learned graph in open formats: GraphML, Graphviz DOT and JSON.
+
+Pure functions of a run record; nodes carry their tier (0-based; -1 when in no tier),
+kind and states, edges whether the spec required them.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from typing import Any
+
+import networkx as nx
+
+FORMATS = ("graphml", "dot", "json")
+
+
+def learned_graph(record: dict[str, Any]) -> nx.DiGraph:
+    """The run's DAG as a networkx graph with node and edge attributes, nodes in data order."""
+    spec = record.get("spec", {})
+    tier_of = {name: t for t, tier in enumerate(spec.get("tiers", [])) for name in tier}
+    required = {tuple(e) for e in spec.get("required", [])}
+    graph = nx.DiGraph(name=record["spec_name"], run_id=record["run_id"],
+                       score=record["score"]["name"], graph_sha256=record["graph_sha256"])
+    for name, column in record["data"]["columns"].items():
+        graph.add_node(name, tier=tier_of.get(name, -1), kind=column["kind"],
+                       states="|".join(column["states"]))
+    for a, b in record["edges"]:
+        graph.add_edge(a, b, required=(a, b) in required)
+    return graph
+
+
+def to_graphml(record: dict[str, Any]) -> str:
+    """GraphML text (the XML graph standard), written by networkx."""
+    buffer = io.BytesIO()
+    nx.write_graphml(learned_graph(record), buffer, encoding="utf-8", prettyprint=True)
+    return buffer.getvalue().decode("utf-8")
+
+
+def _dot_id(text: str) -> str:
+    return '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def to_dot(record: dict[str, Any]) -> str:
+    """Graphviz DOT text: one subgraph rank per tier, required edges drawn bold."""
+    graph = learned_graph(record)
+    lines = [f"digraph {_dot_id(record['spec_name'])} {{", "  rankdir=TB;",
+             f"  label={_dot_id(record['run_id'] + ' (' + record['score']['name'] + ')')};"]
+    tiers = sorted({data["tier"] for _, data in graph.nodes(data=True)})
+    for tier in tiers:
+        members = [n for n, data in graph.nodes(data=True) if data["tier"] == tier]
+        body = " ".join(_dot_id(n) + ";" for n in members)
+        lines.append(f"  {{ rank=same; {body} }}" if tier >= 0 else f"  {body}")
+    for a, b, data in graph.edges(data=True):
+        style = " [style=bold]" if data["required"] else ""
+        lines.append(f"  {_dot_id(a)} -> {_dot_id(b)}{style};")
+    lines.append("}")
+    return "\n".join(lines) + "\n"
+
+
+def to_json(record: dict[str, Any]) -> str:
+    """Our JSON: nodes with attributes, edges, and the run's identity and score."""
+    graph = learned_graph(record)
+    document = {
+        "run_id": record["run_id"], "spec_name": record["spec_name"],
+        "graph_sha256": record["graph_sha256"], "score": record["score"]["name"],
+        "score_value": record["score"]["value"],
+        "nodes": [{"name": n, **data} for n, data in graph.nodes(data=True)],
+        "edges": [{"from": a, "to": b, **data} for a, b, data in graph.edges(data=True)],
+    }
+    return json.dumps(document, indent=2, sort_keys=True, ensure_ascii=False) + "\n"
+
+
+def export(record: dict[str, Any], fmt: str) -> str:
+    return {"graphml": to_graphml, "dot": to_dot, "json": to_json}[fmt](record)
