@@ -11,13 +11,12 @@ by Chickering's (1995) edge labelling (see :mod:`runner.graph`).
 
 from __future__ import annotations
 
-import math
 import xml.etree.ElementTree as ET
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from runner.data import load_dataset
+from runner.data import load_dataset, loader_settings
 from runner.errors import InputError, Problem
 from runner.graph import (
     Cpdag,
@@ -231,12 +230,8 @@ def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
     """
     explicit = data_path is not None
     path = Path(data_path) if explicit else record_data_file(record)
-    ds_spec = _get(record, ("spec", "dataset")) or {}
-    declared = {n: list(c["states"]) for n, c in (ds_spec.get("columns") or {}).items()
-                if c.get("states")}
-    dataset = load_dataset(path, missing=ds_spec.get("missing", "error"),
-                           declared_states=declared, max_states=ds_spec.get("max_states", 64),
-                           display_path=str(path))
+    dataset = load_dataset(path, display_path=str(path),
+                           **loader_settings(_get(record, ("spec", "dataset")) or {}))
     if not explicit and dataset.sha256 != record["data"]["sha256"]:
         raise InputError(Problem(str(path), (
             f"the data file's sha256 is {dataset.sha256}, but run {record['run_id']} was "
@@ -249,7 +244,7 @@ def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
                                  + ", ".join(map(repr, unknown)), key="columns"))
     scorer = build_scorer(score_name, dataset.codes, dataset.arities, ess=ess)
     parents = parents_from_edges(names, record["edges"])
-    total = math.fsum(scorer.family(c, tuple(ps)) for c, ps in enumerate(parents))
+    total = scorer.total(parents)
     return {"score": score_name, "ess": ess if score_name == "bdeu" else None, "value": total,
             "per_row": total / dataset.rows, "data_sha256": dataset.sha256,
             "data_path": str(path)}

@@ -125,6 +125,19 @@ def file_sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
+def loader_settings(dataset: Mapping[str, Any]) -> dict[str, Any]:
+    """``load_dataset`` keywords from a spec's ``dataset`` block as plain data (a
+    normalised spec, or the copy inside a run record): missing rule, state limit and
+    the declared state orders."""
+    columns = dataset.get("columns") or {}
+    return {
+        "missing": dataset.get("missing", "error"),
+        "max_states": dataset.get("max_states", 64),
+        "declared_states": {n: list(c["states"]) for n, c in columns.items()
+                            if c.get("states")},
+    }
+
+
 def load_dataset(
     path: str | Path,
     *,

@@ -6,7 +6,6 @@ The command line calls these functions and only formats what they return.
 from __future__ import annotations
 
 import hashlib
-import math
 import platform
 import time
 from dataclasses import dataclass, field
@@ -21,7 +20,7 @@ import pydantic
 
 from runner.codeversion import code_sha256, code_version
 from runner.constraints import Constraints, build_constraints
-from runner.data import Dataset, load_dataset
+from runner.data import Dataset, load_dataset, loader_settings
 from runner.errors import InputError, Problem
 from runner.graph import edges_from_parents, graph_sha256
 from runner.scores import SCORE_EQUIVALENT, FamilyScorer, build_scorer
@@ -81,12 +80,9 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None) -> Prepa
         path, display, pin = Path(data_path), str(data_path), None
     else:
         path, display, pin = spec.dataset_path(), ds.path, ds.sha256
-    declared = {n: list(c.states) for n, c in ds.columns.items() if c.states}
     try:
-        dataset = load_dataset(
-            path, missing=ds.missing, declared_states=declared, max_states=ds.max_states,
-            expected_sha256=pin, display_path=display,
-        )
+        dataset = load_dataset(path, expected_sha256=pin, display_path=display,
+                               **loader_settings(normalised_spec(spec)["dataset"]))
     except InputError as exc:
         raise InputError(problems + exc.problems) from None
     warnings.extend(dataset.warnings)
@@ -227,9 +223,8 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
 
     edges = edges_from_parents(names, outcome.parent_sets)
     families = {names[c]: scorer.family(c, ps) for c, ps in enumerate(outcome.parent_sets)}
-    # The stored total is the exactly rounded sum of the families in column order, the
-    # same whichever method (and summation order) found the graph.
-    total = math.fsum(families[n] for n in names)
+    # The stored total is exactly rounded, the same whichever method found the graph.
+    total = scorer.total(outcome.parent_sets)
     score_block: dict[str, Any] = {
         "name": spec.score.name,
         "value": total,

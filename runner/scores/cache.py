@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from collections import OrderedDict
 from collections.abc import Callable, Iterable
 
@@ -74,8 +75,9 @@ class FamilyScorer:
         return value
 
     def total(self, parent_sets: Iterable[Iterable[int]]) -> float:
-        """Sum of family scores of a DAG given as one parent set per variable."""
-        return float(sum(self.family(child, ps) for child, ps in enumerate(parent_sets)))
+        """Sum of family scores of a DAG given as one parent set per variable, exactly
+        rounded (``math.fsum``), so it does not depend on summation order."""
+        return math.fsum(self.family(child, ps) for child, ps in enumerate(parent_sets))
 
     def families(self, parent_sets: Iterable[Iterable[int]]) -> list[float]:
         return [self.family(child, ps) for child, ps in enumerate(parent_sets)]
