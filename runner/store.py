@@ -48,11 +48,19 @@ def results_root(option: str | None) -> Path:
     return Path(option or os.environ.get(RESULTS_ENV) or "results")
 
 
+def _file_mode() -> int:
+    """The mode a plain new file gets under the process umask (mkstemp would give 0600)."""
+    umask = os.umask(0o022)
+    os.umask(umask)
+    return 0o666 & ~umask
+
+
 def atomic_write_text(path: Path, text: str) -> None:
     """Write ``text`` to ``path`` through a temporary file in the same folder and a rename."""
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        os.chmod(tmp, _file_mode())
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
             handle.write(text)
             handle.flush()
