@@ -27,6 +27,7 @@ from runner.store import (
     atomic_write_text,
     list_runs,
     read_baseline,
+    read_model,
     read_run,
     resolve_run,
     results_root,
@@ -94,6 +95,15 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--out", metavar="FILE", help="write here instead of stdout")
     p.add_argument("--results")
 
+    p = sub.add_parser("report", help="a self-contained HTML report of a run, with pictures")
+    p.add_argument("run", metavar="RUN")
+    p.add_argument("--vs", metavar="OTHER_RUN", help="overlay a second run's network")
+    p.add_argument("--out", metavar="FILE", help="the HTML file (default "
+                   "report-<run id>[-vs-<other id>].html in the current folder)")
+    p.add_argument("--show-forbidden", action="store_true",
+                   help="also draw the spec's forbidden pairs")
+    p.add_argument("--results")
+
     p = sub.add_parser("demo", help="copy the kiln-line scenario into DIR and run it")
     p.add_argument("dir", nargs="?", default="dagmill-demo", metavar="DIR")
     p.add_argument("--json", action="store_true")
@@ -152,6 +162,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
         print(render_table(["spec", "run", "score", "value", "edges", "stop", "twin"], rows))
         for item in out:
             print(f"stored: {item['folder']}")
+            print(f"report: dagmill report {item['run_id']} --results {root}")
     if mismatch:
         print("NOT REPRODUCED: a run with the same inputs as an earlier one gave a different "
               "graph or score (the new record is stored); see `dagmill show` of both runs",
@@ -290,18 +301,44 @@ def _cmd_history(args: argparse.Namespace) -> int:
     return 0
 
 
-def _cmd_export(args: argparse.Namespace) -> int:
-    record = read_run(resolve_run(results_root(args.results), args.run))
-    text = export(record, args.format)
-    if args.out is None:
-        sys.stdout.write(text)
-        return 0
-    out = Path(args.out)
+def _out_path(option: str) -> Path:
+    out = Path(option)
     if not out.parent.is_dir():
         raise InputError(Problem(str(out), f"folder {str(out.parent)!r} does not exist",
                                  key="--out"))
+    return out
+
+
+def _cmd_export(args: argparse.Namespace) -> int:
+    folder = resolve_run(results_root(args.results), args.run)
+    record = read_run(folder)
+    text = export(record, args.format, read_model(folder, record))
+    if args.out is None:
+        sys.stdout.write(text)
+        return 0
+    out = _out_path(args.out)
     atomic_write_text(out, text)
     print(f"wrote {out}")
+    return 0
+
+
+def _write_report(root: Path, ref: str, other_ref: str | None, out: str | None,
+                  show_forbidden: bool = False) -> Path:
+    from runner.report import default_report_path, render_report
+
+    folder = resolve_run(root, ref)
+    record = read_run(folder)
+    model = read_model(folder, record)
+    other = None if other_ref is None else read_run(resolve_run(root, other_ref))
+    path = _out_path(out) if out is not None else default_report_path(record, other)
+    atomic_write_text(path, render_report(record, folder, model, other, show_forbidden))
+    return path
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    path = _write_report(results_root(args.results), args.run, args.vs, args.out,
+                         args.show_forbidden)
+    print(f"wrote {path}")
     return 0
 
 
@@ -317,19 +354,24 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     spec_path = write_demo(target)
     result = run_spec(spec_path, target / "results")
     rec = result.record
+    report = _write_report(target / "results", str(result.folder), None,
+                           str(target / f"report-{result.run_id}.html"))
     if args.json:
         print(json.dumps({"spec": str(spec_path), "run_id": result.run_id,
                           "folder": str(result.folder), "score": rec["score"]["value"],
-                          "edges": len(rec["edges"])}, indent=2, sort_keys=True))
+                          "edges": len(rec["edges"]), "report": str(report)},
+                         indent=2, sort_keys=True))
         return 0
     print(f"demo scenario written to {target}/ (spec {spec_path})")
     print("\n".join(summary_lines(rec, result.folder)))
+    print(f"report: {report}")
     return 0
 
 
 COMMANDS = {"export": _cmd_export, "validate": _cmd_validate, "run": _cmd_run, "show": _cmd_show,
             "compare": _cmd_compare, "pin": _cmd_pin, "check": _cmd_check,
-            "history": _cmd_history, "schema": _cmd_schema, "demo": _cmd_demo}
+            "history": _cmd_history, "schema": _cmd_schema, "demo": _cmd_demo,
+            "report": _cmd_report}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

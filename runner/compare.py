@@ -18,6 +18,7 @@ from typing import Any
 
 from runner.data import load_dataset, loader_settings
 from runner.errors import InputError, Problem
+from runner.evaluation import held_out_comparison, held_out_comparison_lines
 from runner.graph import (
     Cpdag,
     cpdag,
@@ -274,6 +275,7 @@ def compare_records(a: Mapping[str, Any], b: Mapping[str, Any],
         "score": score_delta(a, b),
         "rescored": rescored,
         "columns": column_changes(a["data"]["columns"], b["data"]["columns"]),
+        "held_out": held_out_comparison(a, b),
         **graph_diff(a, b),
     }
 
@@ -423,6 +425,7 @@ def compare_lines(result: Mapping[str, Any]) -> list[str]:
         lines.append(f"rescored   A under {ab['score']}: {ab['value']:.6f} ({ab['per_row']:.6f}"
                      f" per row)   B under {ba['score']}: {ba['value']:.6f} "
                      f"({ba['per_row']:.6f} per row)")
+    lines += held_out_comparison_lines(result)
     lines += describe_columns(result["columns"])
     e = result["edges"]
     lines.append(f"edges      {len(e['added'])} added, {len(e['removed'])} removed, "

@@ -1,7 +1,9 @@
 """A stored run's learned graph in open formats: GraphML, Graphviz DOT and JSON.
 
-Pure functions of a run record; nodes carry their tier (0-based; -1 when in no tier),
-kind and states, edges whether the spec required them.
+Pure functions of a run record (and its fitted model); nodes carry their tier (0-based;
+-1 when in no tier), kind and states, edges whether the spec required them and, for a run
+with bootstrap resampling, their confidence (share of replicates holding the edge).
+Our JSON also carries the fitted tables of ``model.json``.
 """
 
 from __future__ import annotations
@@ -11,6 +13,8 @@ import json
 from typing import Any
 
 import networkx as nx
+
+from runner.confidence import edge_confidence
 
 FORMATS = ("graphml", "dot", "json")
 
@@ -25,12 +29,15 @@ def learned_graph(record: dict[str, Any]) -> nx.DiGraph:
     for name, column in record["data"]["columns"].items():
         graph.add_node(name, tier=tier_of.get(name, -1), kind=column["kind"],
                        states="|".join(column["states"]))
+    confidence = edge_confidence(record)
     for a, b in record["edges"]:
         graph.add_edge(a, b, required=(a, b) in required)
+        if (a, b) in confidence:
+            graph.edges[a, b]["confidence"] = confidence[(a, b)]
     return graph
 
 
-def to_graphml(record: dict[str, Any]) -> str:
+def to_graphml(record: dict[str, Any], model: dict[str, Any] | None = None) -> str:
     """GraphML text (the XML graph standard), written by networkx."""
     buffer = io.BytesIO()
     nx.write_graphml(learned_graph(record), buffer, encoding="utf-8", prettyprint=True)
@@ -41,8 +48,9 @@ def _dot_id(text: str) -> str:
     return '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
 
-def to_dot(record: dict[str, Any]) -> str:
-    """Graphviz DOT text: one subgraph rank per tier, required edges drawn bold."""
+def to_dot(record: dict[str, Any], model: dict[str, Any] | None = None) -> str:
+    """Graphviz DOT text: one subgraph rank per tier, required edges drawn bold, edges
+    with bootstrap confidence wider (penwidth 1 + 3 x confidence) and labelled with it."""
     graph = learned_graph(record)
     lines = [f"digraph {_dot_id(record['spec_name'])} {{", "  rankdir=TB;",
              f"  label={_dot_id(record['run_id'] + ' (' + record['score']['name'] + ')')};"]
@@ -52,14 +60,20 @@ def to_dot(record: dict[str, Any]) -> str:
         body = " ".join(_dot_id(n) + ";" for n in members)
         lines.append(f"  {{ rank=same; {body} }}" if tier >= 0 else f"  {body}")
     for a, b, data in graph.edges(data=True):
-        style = " [style=bold]" if data["required"] else ""
+        attrs = ["style=bold"] if data["required"] else []
+        if "confidence" in data:
+            attrs += [f"penwidth={1 + 3 * data['confidence']:.3f}",
+                      f'label="{data["confidence"]:.2f}"']
+        style = f" [{', '.join(attrs)}]" if attrs else ""
         lines.append(f"  {_dot_id(a)} -> {_dot_id(b)}{style};")
     lines.append("}")
     return "\n".join(lines) + "\n"
 
 
-def to_json(record: dict[str, Any]) -> str:
-    """Our JSON: nodes with attributes, edges, and the run's identity and score."""
+def to_json(record: dict[str, Any], model: dict[str, Any] | None = None) -> str:
+    """Our JSON: nodes with attributes, edges, the run's identity and score, and the
+    fitted parameters (``parameters``: per variable as in ``model.json``; null for a
+    record from before fitted models)."""
     graph = learned_graph(record)
     document = {
         "run_id": record["run_id"], "spec_name": record["spec_name"],
@@ -67,9 +81,12 @@ def to_json(record: dict[str, Any]) -> str:
         "score_value": record["score"]["value"],
         "nodes": [{"name": n, **data} for n, data in graph.nodes(data=True)],
         "edges": [{"from": a, "to": b, **data} for a, b, data in graph.edges(data=True)],
+        "fit": None if model is None else {k: model.get(k) for k in
+                                           ("estimator", "pseudo_count", "rows")},
+        "parameters": None if model is None else model["variables"],
     }
     return json.dumps(document, indent=2, sort_keys=True, ensure_ascii=False) + "\n"
 
 
-def export(record: dict[str, Any], fmt: str) -> str:
-    return {"graphml": to_graphml, "dot": to_dot, "json": to_json}[fmt](record)
+def export(record: dict[str, Any], fmt: str, model: dict[str, Any] | None = None) -> str:
+    return {"graphml": to_graphml, "dot": to_dot, "json": to_json}[fmt](record, model)

@@ -6,6 +6,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from runner.evaluation import held_out_lines
+
 
 def render_table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
     """A compact left-aligned text table with a rule under the header."""
@@ -49,6 +51,11 @@ def summary_lines(record: dict[str, Any], folder: Path | None = None) -> list[st
         lines.append("families (lowest first)")
         worst = sorted(families.items(), key=lambda kv: (kv[1], kv[0]))
         lines += [f"  {name:<20} {value:.4f}" for name, value in worst]
+    lines += held_out_lines(record)
+    model = record.get("model")
+    if model:
+        lines.append(f"model      {model['file']}  {model['estimator']}, pseudo-count "
+                     f"{model['pseudo_count']:g}  sha256 {model['sha256']}")
     lines.append("")
     lines.append("caution: " + record.get("caution", ""))
     return lines

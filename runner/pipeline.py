@@ -22,6 +22,8 @@ from runner.codeversion import code_sha256, code_version
 from runner.constraints import Constraints, build_constraints
 from runner.data import Dataset, load_dataset, loader_settings
 from runner.errors import InputError, Problem
+from runner.evaluation import held_out_fit, learning_rows
+from runner.fit import DEFAULT_PSEUDO_COUNT, fit_discrete, model_document
 from runner.graph import edges_from_parents, graph_sha256
 from runner.scores import SCORE_EQUIVALENT, FamilyScorer, build_scorer
 from runner.search import (
@@ -39,7 +41,7 @@ from runner.search.exact import exact_search
 from runner.search.order import order_search
 from runner.search.parent_sets import SearchRefused
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
-from runner.store import find_twin, trace_csv, write_run
+from runner.store import find_twin, model_reference, trace_csv, write_run
 
 CAUTION = (
     "A learned structure is statistical association under assumptions (no hidden common "
@@ -201,7 +203,10 @@ def run_search(
 
 
 def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], str]:
-    """Learn the structure of a prepared spec; return the record (without run id) and trace."""
+    """Learn the structure of a prepared spec; return the record (without run id) and trace.
+
+    The fitted tables (``model.json``) are returned in the record under the private key
+    ``_model``, which :func:`run_spec` takes out and stores beside ``run.json``."""
     started = time.perf_counter()
     spec, dataset = prepared.spec, prepared.dataset
     names = dataset.names
@@ -210,7 +215,8 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
     version = code_version()
     inputs = input_sha256(spec_hash, dataset.sha256, version)
 
-    scorer = build_scorer(spec.score.name, dataset.codes, dataset.arities, ess=spec.score.ess)
+    codes, held_codes, split = learning_rows(dataset.codes, spec.evaluation)
+    scorer = build_scorer(spec.score.name, codes, dataset.arities, ess=spec.score.ess)
     search = spec.search
     b = search.budget
     budget = Budget(b.max_steps, b.max_evaluations, b.max_seconds)
@@ -228,12 +234,16 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
     score_block: dict[str, Any] = {
         "name": spec.score.name,
         "value": total,
-        "per_row": total / dataset.rows,
+        "per_row": total / codes.shape[1],
         "families": families,
         "score_equivalent": spec.score.name in SCORE_EQUIVALENT,
     }
     if spec.score.name == "bdeu":
         score_block["ess"] = spec.score.ess
+    pseudo_count = spec.fit.pseudo_count if spec.fit is not None else DEFAULT_PSEUDO_COUNT
+    fitted = fit_discrete(codes, dataset.arities, outcome.parent_sets)
+    model = model_document(fitted, names, dataset.states, pseudo_count, int(codes.shape[1]),
+                           dataset.sha256, graph_sha256(edges))
     record: dict[str, Any] = {
         "run_id": None,
         "spec_name": spec.name,
@@ -282,7 +292,14 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
         "environment": environment(),
         "warnings": [p.format() for p in prepared.warnings],
         "caution": CAUTION,
+        "model": model_reference(model),
+        "_model": model,
     }
+    if split is not None and held_codes is not None:
+        record["data"].update(rows_learned=split["rows_learned"],
+                              rows_held_out=split["rows_held_out"])
+        record["evaluation"] = {**split, **held_out_fit(
+            codes, held_codes, dataset.arities, fitted, pseudo_count, names)}
     trace = trace_csv(
         (r.step, r.move, names[r.source], names[r.target], r.delta, r.score)
         for r in outcome.trace
@@ -295,9 +312,10 @@ def run_spec(spec_path: str | Path, results: Path, data_path: str | Path | None 
     """Prepare, learn and store one spec; report an earlier run with the same inputs."""
     prepared = prepare(spec_path, data_path)
     record, trace = learn(prepared, seed)
+    model = record.pop("_model")
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     record["run_id"] = f"{stamp}-{record['input_sha256'][:10]}"
     twin = find_twin(results, record["spec_name"], record["input_sha256"], exclude="")
-    run_id, folder = write_run(results, record, trace)
+    run_id, folder = write_run(results, record, trace, model)
     record["run_id"] = run_id
     return RunResult(run_id, folder, record, twin, prepared.warnings)

@@ -51,7 +51,7 @@ from runner.errors import InputError, Problem
 IMPLEMENTED_SCORES = ("loglik", "aic", "bic", "bdeu", "k2")
 IMPLEMENTED_METHODS = ("hill-climb", "first-ascent", "stochastic", "tabu", "order", "exact")
 IMPLEMENTED_KINDS = ("discrete",)
-LATER_SECTIONS = ("bootstrap", "fit", "evaluation")
+LATER_SECTIONS = ("bootstrap",)
 
 NAME_PATTERN = r"^[a-z0-9]+(-[a-z0-9]+)*$"
 SHA256_PATTERN = r"^[0-9a-f]{64}$"
@@ -218,14 +218,15 @@ class BootstrapSpec(_Section):
 
 
 class FitSpec(_Section):
-    """Fitting the conditional tables of the learned graph (a later capability)."""
+    """Fitting the conditional probability tables of the learned graph."""
 
     pseudo_count: Annotated[Real, Field(ge=0)] = Field(
-        1.0, description="Dirichlet pseudo-count added to every table cell.")
+        1.0, description="Dirichlet pseudo-count added to every table cell (default 1.0; "
+        "0 gives maximum-likelihood tables).")
 
 
 class EvaluationSpec(_Section):
-    """Held-out evaluation (a later capability)."""
+    """Held-out evaluation: a seeded share of rows is kept out of learning and scored."""
 
     holdout: Annotated[Real, Field(gt=0, lt=1)] = Field(
         description="Share of rows held out from learning.")
@@ -255,9 +256,10 @@ class Spec(_Section):
     search: SearchSpec = Field(default_factory=SearchSpec, description="The search.")
     gate: GateSpec = Field(default_factory=GateSpec, description="What a re-check enforces.")
     bootstrap: BootstrapSpec | None = Field(None, description="Bootstrap (later capability).")
-    fit: FitSpec | None = Field(None, description="Table fitting (later capability).")
+    fit: FitSpec | None = Field(None, description="Fitting the conditional probability "
+                                "tables (pseudo_count 1.0 when absent).")
     evaluation: EvaluationSpec | None = Field(
-        None, description="Held-out evaluation (later capability).")
+        None, description="Held-out evaluation: rows kept out of learning, then scored.")
 
     _source_path: Path | None = PrivateAttr(default=None)
     _file: str | None = PrivateAttr(default=None)
@@ -783,6 +785,17 @@ def _later_sections(spec: Spec, where: _Where) -> list[Problem]:
          if spec.gate.on == "consensus" else [])
 
 
+def _holdout_needs_pseudo_count(spec: Spec, where: _Where) -> list[Problem]:
+    """Held-out rows may show a parent configuration or state that the learning rows lack;
+    with pseudo-count 0 its probability is 0 (or undefined) and the log-likelihood -inf."""
+    if spec.evaluation is None or spec.fit is None or spec.fit.pseudo_count > 0:
+        return []
+    return [where.problem("fit.pseudo_count", "held-out evaluation needs a pseudo-count "
+                          "above 0: a state or parent configuration the learning rows lack "
+                          "would get probability 0 and a log-likelihood of -inf; set "
+                          "fit.pseudo_count (e.g. 1.0) or drop 'evaluation'", value=0.0)]
+
+
 def _column_rules(spec: Spec, where: _Where) -> list[Problem]:
     problems: list[Problem] = []
     for name, column in spec.dataset.columns.items():
@@ -1032,6 +1045,7 @@ _RULES: tuple[tuple[frozenset[str], Rule], ...] = (
     (frozenset({"search.method"}), _method_available),
     (frozenset({"score.name"}), _score_available),
     (frozenset(), _later_sections),
+    (frozenset({"fit", "evaluation"}), _holdout_needs_pseudo_count),
     (frozenset({"dataset.columns"}), _column_rules),
     (frozenset({"search.method", "search.restarts"}), _ignored_search_keys),
     (frozenset({"tiers"}), _tier_repeats),

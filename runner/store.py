@@ -5,6 +5,7 @@ Layout (see the README)::
     <results>/<spec name>/baseline.json
     <results>/<spec name>/runs/<run id>/run.json
     <results>/<spec name>/runs/<run id>/trace.csv
+    <results>/<spec name>/runs/<run id>/model.json   # fitted tables; sha256 in run.json
 
 JSON is written with sorted keys, two-space indents and a final newline, so records
 diff cleanly under version control. A run folder is assembled under a temporary name
@@ -47,11 +48,19 @@ def results_root(option: str | None) -> Path:
     return Path(option or os.environ.get(RESULTS_ENV) or "results")
 
 
+def _file_mode() -> int:
+    """The mode a plain new file gets under the process umask (mkstemp would give 0600)."""
+    umask = os.umask(0o022)
+    os.umask(umask)
+    return 0o666 & ~umask
+
+
 def atomic_write_text(path: Path, text: str) -> None:
     """Write ``text`` to ``path`` through a temporary file in the same folder and a rename."""
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        os.chmod(tmp, _file_mode())
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
             handle.write(text)
             handle.flush()
@@ -72,8 +81,19 @@ def trace_csv(rows: Iterable[Sequence[Any]]) -> str:
     return buffer.getvalue()
 
 
-def write_run(root: Path, record: dict[str, Any], trace: str) -> tuple[str, Path]:
-    """Store a run; return its final run id (a suffix is added on a same-second clash)."""
+MODEL_FILE = "model.json"
+
+
+def model_reference(model: dict[str, Any]) -> dict[str, Any]:
+    """The record's ``model`` block: the model file's name, sha256 and how it was fitted."""
+    return {"file": MODEL_FILE, "sha256": sha256_text(dump_json(model)),
+            "pseudo_count": model.get("pseudo_count"), "estimator": model.get("estimator")}
+
+
+def write_run(root: Path, record: dict[str, Any], trace: str,
+              model: dict[str, Any] | None = None) -> tuple[str, Path]:
+    """Store a run (and its fitted model, if given); return its final run id (a suffix is
+    added on a same-second clash)."""
     runs = root / record["spec_name"] / "runs"
     runs.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=".incoming-", dir=runs))
@@ -84,6 +104,8 @@ def write_run(root: Path, record: dict[str, Any], trace: str) -> tuple[str, Path
             record = {**record, "run_id": run_id}
             (staging / "run.json").write_text(dump_json(record), encoding="utf-8")
             (staging / "trace.csv").write_text(trace, encoding="utf-8")
+            if model is not None:
+                (staging / MODEL_FILE).write_text(dump_json(model), encoding="utf-8")
             final = runs / run_id
             if final.exists():
                 continue
@@ -133,7 +155,31 @@ def read_run(folder: Path) -> dict[str, Any]:
             str(path), "record content does not match its graph_sha256: the edges were "
             "edited by hand; restore the file from version control or re-run the spec",
             key="edges"))
+    read_model(folder, record)
     return record
+
+
+def read_model(folder: Path, record: dict[str, Any]) -> dict[str, Any] | None:
+    """The run's fitted model, checked against the sha256 its record holds; None for a
+    record from before fitted models. A missing or edited model file is refused."""
+    reference = record.get("model")
+    if reference is None:
+        return None
+    path = folder / MODEL_FILE
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError(Problem(str(path), "the run's model file is missing (run.json "
+                                 "records its sha256); restore it from version control or "
+                                 "re-run the spec", key="model")) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(Problem(str(path), f"model file is unreadable: {exc}",
+                                 key="model")) from None
+    if sha256_text(text) != reference.get("sha256"):
+        raise InputError(Problem(str(path), "model file does not match the sha256 in "
+                                 "run.json: it was edited; restore it from version control "
+                                 "or re-run the spec", key="model"))
+    return json.loads(text)
 
 
 def find_twin(root: Path, spec_name: str, input_sha256: str, exclude: str) -> dict | None:

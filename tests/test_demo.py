@@ -32,6 +32,10 @@ def test_demo_writes_the_scenario_and_recovers_the_network(tmp_path: Path) -> No
     assert (target / "datasets" / "kiln-line.csv").read_bytes() == (
         ROOT / "datasets" / "kiln-line.csv").read_bytes()
     record = json.loads((Path(out["folder"]) / "run.json").read_text())
+    # the demo writes the run's report beside the scenario and says where
+    assert out["report"] == str(target / f"report-{out['run_id']}.html")
+    assert Path(out["report"]).read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
+    assert (Path(out["folder"]) / "model.json").is_file()
     learned = [tuple(e) for e in record["edges"]]
     names = sorted(n for tier in TIERS for n in tier)
     shd = structural_hamming_distance(TRUE_EDGES, learned)

@@ -41,7 +41,15 @@ def test_graphml_round_trip_through_networkx(stored_run: tuple[Path, dict]) -> N
     assert sorted(graph.nodes) == sorted(record["data"]["columns"])
     assert sorted(map(list, graph.edges)) == record["edges"]
     assert graph.nodes["kiln_peak"]["tier"] == 1
+    assert graph.nodes["grade"]["tier"] == 3
     assert graph.nodes["grade"]["kind"] == "discrete"
+    # the same graph: nodes with the same attributes, edges in the same direction
+    from runner.export import learned_graph
+
+    ours = learned_graph(record)
+    assert dict(graph.nodes(data=True)) == dict(ours.nodes(data=True))
+    assert graph.adj == ours.adj  # edges with their attributes
+    assert {k: v for k, v in graph.graph.items() if not k.endswith("_default")} == ours.graph
     assert graph.edges["kiln_peak", "crack"]["required"] is True
 
 
@@ -49,10 +57,54 @@ def test_dot_has_every_edge(stored_run: tuple[Path, dict]) -> None:
     folder, record = stored_run
     result = export(folder, record, "dot")
     assert result.returncode == 0
-    edge_lines = re.findall(r'^\s*"([^"]+)" -> "([^"]+)"(?: \[style=bold\])?;$', result.stdout,
+    edge_lines = re.findall(r'^\s*"([^"]+)" -> "([^"]+)"(?: \[[^\]]*\])?;$', result.stdout,
                             flags=re.MULTILINE)
     assert sorted(map(list, edge_lines)) == record["edges"]
     assert result.stdout.startswith('digraph "kiln-line" {') and result.stdout.endswith("}\n")
+
+
+def test_dot_parsed_back_by_pydot(stored_run: tuple[Path, dict]) -> None:
+    # reference parser: pydot 4 (Graphviz DOT grammar)
+    import pydot
+
+    folder, record = stored_run
+    (graph,) = pydot.graph_from_dot_data(export(folder, record, "dot").stdout)
+    parsed = sorted([e.get_source().strip('"'), e.get_destination().strip('"')]
+                    for e in graph.get_edges())
+    assert parsed == record["edges"]
+    bold = [e for e in graph.get_edges() if e.get_style() == "bold"]
+    assert [(e.get_source(), e.get_destination()) for e in bold] == [('"kiln_peak"',
+                                                                      '"crack"')]
+
+
+def with_bootstrap(record: dict) -> dict:
+    """The record as a bootstrap run would extend it (layout read by runner/confidence.py)."""
+    shares = [0.25 + 0.05 * i for i in range(len(record["edges"]))]
+    return {**record, "bootstrap": {"replicates": 20, "edges": [
+        {"from": a, "to": b, "frequency": f}
+        for (a, b), f in zip(record["edges"], shares, strict=True)]}}
+
+
+def test_bootstrap_confidence_in_graphml_and_dot(stored_run: tuple[Path, dict]) -> None:
+    # reference reader: networkx.read_graphml; reference parser: pydot
+    import io
+
+    import pydot
+
+    from runner.export import to_dot, to_graphml
+
+    _, record = stored_run
+    boot = with_bootstrap(record)
+    graph = nx.read_graphml(io.BytesIO(to_graphml(boot).encode()))
+    a, b = record["edges"][1]
+    assert graph.edges[a, b]["confidence"] == pytest.approx(0.30)
+    (dot,) = pydot.graph_from_dot_data(to_dot(boot))
+    labels = {(e.get_source().strip('"'), e.get_destination().strip('"')): e.get_label()
+              for e in dot.get_edges()}
+    assert labels[(a, b)] == '"0.30"'
+    # a record without a bootstrap block has no confidence attribute at all
+    plain = nx.read_graphml(io.BytesIO(to_graphml(record).encode()))
+    assert all("confidence" not in d for _, _, d in plain.edges(data=True))
 
 
 def test_json_export(stored_run: tuple[Path, dict]) -> None:
@@ -60,6 +112,14 @@ def test_json_export(stored_run: tuple[Path, dict]) -> None:
     document = json.loads(export(folder, record, "json").stdout)
     assert document["graph_sha256"] == record["graph_sha256"]
     assert sorted([e["from"], e["to"]] for e in document["edges"]) == record["edges"]
+    model = json.loads((folder / "results" / "kiln-line" / "runs" / record["run_id"]
+                        / "model.json").read_text())
+    assert document["parameters"] == model["variables"]
+    assert document["fit"] == {"estimator": "dirichlet-posterior-mean", "pseudo_count": 1.0,
+                               "rows": record["data"]["rows"]}
+    for name, var in document["parameters"].items():
+        parents = sorted(a for a, b in record["edges"] if b == name)
+        assert sorted(var["parents"]) == parents
 
 
 def test_export_bad_input(stored_run: tuple[Path, dict]) -> None:
@@ -69,3 +129,4 @@ def test_export_bad_input(stored_run: tuple[Path, dict]) -> None:
     missing = export(folder, record, "dot", "--out", str(folder / "no" / "such" / "x.dot"))
     assert missing.returncode == 2 and "does not exist" in missing.stderr
     assert "Traceback" not in unknown.stderr + missing.stderr
+    assert not (folder / "no").exists()

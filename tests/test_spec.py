@@ -355,10 +355,28 @@ def test_not_available_in_this_version(tmp_path: Path) -> None:
     assert "loglik, aic, bic, bdeu, k2" in score.message
     kind = only(problems, "dataset.columns.peak.kind")
     assert kind.line == 5 and "available kinds: discrete" in kind.message
-    for section, line in (("bootstrap", 8), ("fit", 9), ("evaluation", 10)):
-        problem = only(problems, section)
-        assert problem.line == line
-        assert "not available in this version of dagmill" in problem.message
+    problem = only(problems, "bootstrap")
+    assert problem.line == 8
+    assert "not available in this version of dagmill" in problem.message
+    # fit and evaluation are available now
+    assert not [p for p in problems if p.key in ("fit", "evaluation")]
+
+
+def test_fit_and_evaluation_sections(tmp_path: Path) -> None:
+    spec = load_spec(write(tmp_path, BASE + "fit: {pseudo_count: 0.5}\n"
+                           "evaluation: {holdout: 0.2, seed: 5}\n"))
+    assert spec.fit is not None and spec.fit.pseudo_count == 0.5
+    assert spec.evaluation is not None and spec.evaluation.holdout == 0.2
+    assert spec.evaluation.seed == 5
+    # held-out rows could meet an unseen configuration: pseudo-count 0 would give -inf
+    problems = problems_of(write(tmp_path, BASE + "fit: {pseudo_count: 0.0}\n"
+                                 "evaluation: {holdout: 0.2}\n"))
+    problem = only(problems, "fit.pseudo_count")
+    assert problem.line == 4 and "-inf" in problem.message
+    for bad, key in (("evaluation: {holdout: 1.0}", "evaluation.holdout"),
+                     ("evaluation: {holdout: 0.0}", "evaluation.holdout"),
+                     ("fit: {pseudo_count: -1.0}", "fit.pseudo_count")):
+        assert only(problems_of(write(tmp_path, BASE + bad + "\n")), key).line == 4
 
 
 @pytest.mark.parametrize(("search", "key"), [

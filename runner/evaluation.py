@@ -1,0 +1,123 @@
+"""Held-out evaluation: a seeded share of rows kept out of learning, then scored.
+
+The split draws a permutation of the row indices from ``numpy.random.default_rng(
+SeedSequence(seed))`` and holds out the first ``round(holdout * rows)`` of them (at least
+one, and at least one row is kept for learning). Both index lists are returned sorted, so
+the learning rows keep the file's order.
+
+The held-out fit of a graph is the mean log-likelihood (natural log) per held-out row
+under tables fitted on the learning rows with the run's pseudo-count; the empty graph
+(every variable on its own) is scored the same way beside it. Held-out cells whose state
+or parent configuration the learning rows lack get their probability from the
+pseudo-count alone; they are counted in the record.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+
+from runner.fit import DiscreteFamily, fit_discrete, log_likelihood_rows
+
+
+def split_rows(n_rows: int, holdout: float, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """``(learn, held_out)`` sorted row indices; ``held_out`` has ``round(holdout * n)``
+    rows, clipped to [1, n - 1] when n >= 2."""
+    rng = np.random.default_rng(np.random.SeedSequence(seed))
+    order = rng.permutation(n_rows)
+    size = round(holdout * n_rows)
+    if n_rows >= 2:
+        size = min(max(size, 1), n_rows - 1)
+    return np.sort(order[size:]), np.sort(order[:size])
+
+
+def held_out_fit(learn_codes: np.ndarray, held_codes: np.ndarray, arities: np.ndarray,
+                 families: Sequence[DiscreteFamily], pseudo_count: float,
+                 names: Sequence[str]) -> dict[str, Any]:
+    """The record's ``evaluation.log_likelihood`` and ``evaluation.unseen`` blocks."""
+    rows = held_codes.shape[1]
+    learned, unseen = log_likelihood_rows(families, held_codes, pseudo_count)
+    empty_fams = fit_discrete(learn_codes, arities, [() for _ in range(len(arities))])
+    empty, empty_unseen = log_likelihood_rows(empty_fams, held_codes, pseudo_count)
+    learned_total, empty_total = float(learned.sum()), float(empty.sum())
+    per_row = learned_total / rows if rows else 0.0
+    empty_per_row = empty_total / rows if rows else 0.0
+    return {
+        "log_likelihood": {
+            "learned": learned_total, "empty": empty_total,
+            "learned_per_row": per_row, "empty_per_row": empty_per_row,
+            "difference_per_row": per_row - empty_per_row,
+        },
+        "unseen": {
+            "configurations": unseen["configurations"],
+            "states": unseen["states"],
+            "empty_graph_states": empty_unseen["states"],
+            "by_variable": {names[v]: counts
+                            for v, counts in sorted(unseen["by_variable"].items())},
+        },
+    }
+
+
+def learning_rows(codes: np.ndarray, evaluation: Any) -> tuple[np.ndarray, np.ndarray | None,
+                                                                dict[str, Any] | None]:
+    """The codes to learn from, the held-out codes (None without ``evaluation``) and the
+    record's description of the split (None without it)."""
+    if evaluation is None:
+        return codes, None, None
+    learn, held = split_rows(codes.shape[1], evaluation.holdout, evaluation.seed)
+    split = {"holdout": evaluation.holdout, "seed": evaluation.seed,
+             "rows_learned": int(learn.size), "rows_held_out": int(held.size),
+             "rule": "seeded permutation (numpy SeedSequence(seed)); the first "
+                     "round(holdout * rows) rows of it are held out"}
+    return (np.ascontiguousarray(codes[:, learn]), np.ascontiguousarray(codes[:, held]), split)
+
+
+# --------------------------------------------------------------------------- records
+
+
+def held_out_summary(record: Mapping[str, Any]) -> dict[str, Any] | None:
+    """A run's held-out fit as stored, or None when it has none."""
+    ev = record.get("evaluation")
+    if not isinstance(ev, Mapping) or "log_likelihood" not in ev:
+        return None
+    return ev  # type: ignore[return-value]
+
+
+def held_out_lines(record: Mapping[str, Any]) -> list[str]:
+    """The ``show`` lines of a run's held-out fit (none without one)."""
+    ev = held_out_summary(record)
+    if ev is None:
+        return []
+    ll, unseen = ev["log_likelihood"], ev["unseen"]
+    return [
+        f"held out   {ev['rows_held_out']} rows (holdout {ev['holdout']:g}, seed {ev['seed']}); "
+        f"learned on {ev['rows_learned']}",
+        f"  log-likelihood per held-out row: learned {ll['learned_per_row']:.6f}  "
+        f"empty graph {ll['empty_per_row']:.6f}  difference "
+        f"{ll['difference_per_row']:+.6f}",
+        f"  unseen in learning: {unseen['configurations']} parent configurations, "
+        f"{unseen['states']} states (cells of held-out rows; from the pseudo-count)",
+    ]
+
+
+def held_out_comparison(a: Mapping[str, Any], b: Mapping[str, Any]) -> dict[str, Any] | None:
+    """Held-out log-likelihood per row of both runs and B - A, when both have one;
+    ``same_rows`` says whether they held out the same rows of the same data."""
+    ea, eb = held_out_summary(a), held_out_summary(b)
+    if ea is None or eb is None:
+        return None
+    la, lb = ea["log_likelihood"]["learned_per_row"], eb["log_likelihood"]["learned_per_row"]
+    same = (a["data"]["sha256"] == b["data"]["sha256"]
+            and (ea["holdout"], ea["seed"]) == (eb["holdout"], eb["seed"]))
+    return {"a_per_row": la, "b_per_row": lb, "delta_per_row": lb - la, "same_rows": same}
+
+
+def held_out_comparison_lines(result: Mapping[str, Any]) -> list[str]:
+    held = result.get("held_out")
+    if not held:
+        return []
+    note = "" if held["same_rows"] else "  (different held-out rows: not comparable)"
+    return [f"held out   log-likelihood per row A {held['a_per_row']:.6f}  B "
+            f"{held['b_per_row']:.6f}  delta {held['delta_per_row']:+.6f}{note}"]

@@ -1,0 +1,188 @@
+"""Fitted conditional probability tables of a learned graph (the run's ``model.json``).
+
+Discrete variables: for each child and each parent configuration j that occurs in the
+learning rows, the counts N_jk of the child's states k and the probabilities
+
+    theta_jk = (N_jk + a) / (N_j + r a),
+
+the posterior mean under a symmetric Dirichlet(a, ..., a) prior on each row of the table
+(Heckerman, Geiger & Chickering 1995, "Learning Bayesian networks: the combination of
+knowledge and statistical data", eq. 9 with alpha_ijk = a). ``a = 0`` gives the
+maximum-likelihood estimate N_jk / N_j. A configuration absent from the learning rows
+has N_j = 0 and gets the prior mean 1/r (defined only for a > 0).
+
+The functions are pure: they take the integer codes (variables x rows), the arities and
+the parent sets, and return plain data. Counting uses the mixed-radix configuration
+codes of :mod:`runner.scores.counts`.
+
+Gaussian variables get coefficients, intercept and residual variance in
+:func:`gaussian_family` once continuous columns exist.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from runner.scores.counts import COMPACT_ABOVE, configuration_codes
+
+MODEL_FORMAT = "dagmill-model"
+MODEL_VERSION = 1
+DEFAULT_PSEUDO_COUNT = 1.0
+
+
+@dataclass(frozen=True)
+class DiscreteFamily:
+    """One child's table: occurring parent configurations (as codes) and their counts.
+
+    ``configs[j]`` is the mixed-radix code of configuration j (sorted ascending),
+    ``parent_states[j]`` the parents' state codes in that configuration and
+    ``counts[j, k]`` the learning rows with that configuration and child state k.
+    """
+
+    child: int
+    parents: tuple[int, ...]
+    arity: int
+    possible: int
+    configs: np.ndarray
+    parent_states: np.ndarray
+    counts: np.ndarray
+
+    def probabilities(self, pseudo_count: float) -> np.ndarray:
+        """theta_jk = (N_jk + a) / (N_j + r a) for every occurring configuration."""
+        numerator = self.counts + pseudo_count
+        return numerator / numerator.sum(axis=1, keepdims=True)
+
+
+def _codes_of(codes: np.ndarray, arities: np.ndarray, parents: Sequence[int]) -> np.ndarray:
+    """Mixed-radix configuration codes (first parent most significant). Above 2**62
+    possible configurations the codes are ranks of the distinct parent-state rows in
+    lexicographic order (the same order), valid only within one call."""
+    possible = 1
+    for p in parents:
+        possible *= int(arities[p])
+    if possible < COMPACT_ABOVE:
+        code, _, _ = configuration_codes(codes, arities, list(parents))
+        return np.asarray(code, dtype=np.uint64)
+    _, inverse = np.unique(codes[list(parents)].T, axis=0, return_inverse=True)
+    return inverse.reshape(-1).astype(np.uint64)
+
+
+def discrete_family(codes: np.ndarray, arities: np.ndarray, child: int,
+                    parents: Sequence[int]) -> DiscreteFamily:
+    """The counts of one family over the rows of ``codes``."""
+    r = int(arities[child])
+    possible = int(np.prod([int(arities[p]) for p in parents], dtype=object)) if parents else 1
+    if codes.shape[1] == 0:
+        return DiscreteFamily(child, tuple(parents), r, possible, np.zeros(0, np.uint64),
+                              np.zeros((0, len(parents)), np.int64), np.zeros((0, r), np.int64))
+    config = _codes_of(codes, arities, parents)
+    configs, first, inverse = np.unique(config, return_index=True, return_inverse=True)
+    flat = np.bincount(inverse.astype(np.int64) * r + codes[child].astype(np.int64),
+                       minlength=configs.size * r)
+    parent_states = (codes[list(parents)][:, first].T.astype(np.int64) if parents
+                     else np.zeros((configs.size, 0), np.int64))
+    return DiscreteFamily(child, tuple(parents), r, possible, configs, parent_states,
+                          flat.reshape(configs.size, r).astype(np.int64))
+
+
+def fit_discrete(codes: np.ndarray, arities: np.ndarray,
+                 parent_sets: Sequence[Sequence[int]]) -> list[DiscreteFamily]:
+    """Every family's counts, in column order."""
+    return [discrete_family(codes, arities, c, tuple(ps)) for c, ps in enumerate(parent_sets)]
+
+
+def gaussian_family(codes: np.ndarray, child: int, parents: Sequence[int]) -> dict[str, Any]:
+    """Slot for a continuous child: least-squares coefficients on its parents, intercept
+    and residual variance. Continuous columns are not available in this version."""
+    raise NotImplementedError("Gaussian tables come with continuous columns")
+
+
+def configuration_index(fam: DiscreteFamily, codes: np.ndarray) -> np.ndarray:
+    """For each row of ``codes``, the index of its parent configuration among the
+    family's occurring ones, or -1 when the learning rows never had it."""
+    n_rows = codes.shape[1]
+    m = fam.configs.size
+    if m == 0:
+        return np.full(n_rows, -1, dtype=np.int64)
+    if not fam.parents:
+        return np.zeros(n_rows, dtype=np.int64)
+    both = np.vstack([fam.parent_states, codes[list(fam.parents)].T.astype(np.int64)])
+    _, inverse = np.unique(both, axis=0, return_inverse=True)
+    inverse = inverse.reshape(-1)
+    lookup = np.full(int(inverse.max()) + 1, -1, dtype=np.int64)
+    lookup[inverse[:m]] = np.arange(m)
+    return lookup[inverse[m:]]
+
+
+def log_likelihood_rows(families: Sequence[DiscreteFamily], codes: np.ndarray,
+                        pseudo_count: float) -> tuple[np.ndarray, dict[str, Any]]:
+    """Log-likelihood (natural log) of each row of ``codes`` under the fitted tables, and
+    what the learning rows had not seen: cells (variable x row) whose parent configuration
+    never occurred in learning (probability 1/r), and cells whose child state had count 0
+    in its configuration. Both get their probability from the pseudo-count alone, so
+    ``pseudo_count`` must be above 0 when they occur (else the result is -inf).
+    """
+    n_rows = codes.shape[1]
+    total = np.zeros(n_rows)
+    unseen_configs = unseen_states = 0
+    per_variable: dict[int, dict[str, int]] = {}
+    for fam in families:
+        child = codes[fam.child].astype(np.int64)
+        index = configuration_index(fam, codes)
+        seen = index >= 0
+        p = np.full(n_rows, 1.0 / fam.arity)
+        zero_state = np.zeros(n_rows, dtype=bool)
+        if fam.configs.size:
+            probs = fam.probabilities(pseudo_count)
+            p[seen] = probs[index[seen], child[seen]]
+            zero_state[seen] = fam.counts[index[seen], child[seen]] == 0
+        n_configs, n_states = int((~seen).sum()), int(zero_state.sum())
+        unseen_configs += n_configs
+        unseen_states += n_states
+        if n_configs or n_states:
+            per_variable[fam.child] = {"configurations": n_configs, "states": n_states}
+        with np.errstate(divide="ignore"):
+            total += np.log(p)
+    return total, {"configurations": unseen_configs, "states": unseen_states,
+                   "by_variable": per_variable}
+
+
+def model_document(families: Sequence[DiscreteFamily], names: Sequence[str],
+                   states: Sequence[Sequence[str]], pseudo_count: float, rows: int,
+                   data_sha256: str, graph_hash: str) -> dict[str, Any]:
+    """The ``model.json`` document: per variable its parents, each occurring parent
+    configuration with counts and probabilities, and the table row for an unseen one."""
+    variables: dict[str, Any] = {}
+    for fam in families:
+        probs = fam.probabilities(pseudo_count) if fam.configs.size else fam.counts * 1.0
+        rows_out = []
+        for j in range(fam.configs.size):
+            rows_out.append({
+                "parents": [states[p][int(s)] for p, s in zip(fam.parents,
+                                                              fam.parent_states[j], strict=True)],
+                "counts": [int(c) for c in fam.counts[j]],
+                "probabilities": [float(x) for x in probs[j]],
+            })
+        variables[names[fam.child]] = {
+            "kind": "discrete",
+            "states": list(states[fam.child]),
+            "parents": [names[p] for p in fam.parents],
+            "possible_configurations": fam.possible,
+            "configurations": rows_out,
+            "unseen_configuration": ([1.0 / fam.arity] * fam.arity if pseudo_count > 0
+                                     else None),
+        }
+    return {
+        "format": MODEL_FORMAT,
+        "version": MODEL_VERSION,
+        "estimator": "dirichlet-posterior-mean" if pseudo_count > 0 else "maximum-likelihood",
+        "pseudo_count": pseudo_count,
+        "rows": rows,
+        "data_sha256": data_sha256,
+        "graph_sha256": graph_hash,
+        "variables": variables,
+    }
