@@ -6,6 +6,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from runner.bootstrap import confidence_lines
+
 
 def render_table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
     """A compact left-aligned text table with a rule under the header."""
@@ -49,6 +51,7 @@ def summary_lines(record: dict[str, Any], folder: Path | None = None) -> list[st
         lines.append("families (lowest first)")
         worst = sorted(families.items(), key=lambda kv: (kv[1], kv[0]))
         lines += [f"  {name:<20} {value:.4f}" for name, value in worst]
+    lines += confidence_lines(record)
     lines.append("")
     lines.append("caution: " + record.get("caution", ""))
     return lines

@@ -51,7 +51,7 @@ from runner.errors import InputError, Problem
 IMPLEMENTED_SCORES = ("loglik", "aic", "bic", "bdeu", "k2")
 IMPLEMENTED_METHODS = ("hill-climb", "first-ascent", "stochastic", "tabu", "order", "exact")
 IMPLEMENTED_KINDS = ("discrete",)
-LATER_SECTIONS = ("bootstrap", "fit", "evaluation")
+LATER_SECTIONS = ("fit", "evaluation")
 
 NAME_PATTERN = r"^[a-z0-9]+(-[a-z0-9]+)*$"
 SHA256_PATTERN = r"^[0-9a-f]{64}$"
@@ -209,7 +209,7 @@ class GateSpec(_Section):
 
 
 class BootstrapSpec(_Section):
-    """Resampled re-learning for edge confidence (a later capability)."""
+    """Resampled re-learning for edge confidence (Friedman, Goldszmidt & Wyner 1999)."""
 
     replicates: PositiveCount = Field(description="Number of resampled data sets.")
     seed: Count = Field(0, description="Seed of the resampling.")
@@ -254,7 +254,8 @@ class Spec(_Section):
     score: ScoreSpec = Field(default_factory=ScoreSpec, description="The score.")
     search: SearchSpec = Field(default_factory=SearchSpec, description="The search.")
     gate: GateSpec = Field(default_factory=GateSpec, description="What a re-check enforces.")
-    bootstrap: BootstrapSpec | None = Field(None, description="Bootstrap (later capability).")
+    bootstrap: BootstrapSpec | None = Field(
+        None, description="Bootstrap edge confidence and a consensus graph.")
     fit: FitSpec | None = Field(None, description="Table fitting (later capability).")
     evaluation: EvaluationSpec | None = Field(
         None, description="Held-out evaluation (later capability).")
@@ -778,9 +779,10 @@ def _later_sections(spec: Spec, where: _Where) -> list[Problem]:
         where.problem(name, f"'{name}' is not available in this version of dagmill; "
                       "available sections: " + ", ".join(available))
         for name in LATER_SECTIONS if where.raw.get(name) is not None
-    ] + ([where.problem("gate.on", "gating on 'consensus' needs bootstrap, which is not "
-                        "available in this version of dagmill; use 'run'", value="consensus")]
-         if spec.gate.on == "consensus" else [])
+    ] + ([where.problem("gate.on", "gating on 'consensus' needs a bootstrap section "
+                        "(bootstrap: {replicates: N, seed: S, threshold: T}); add one or use "
+                        "'run'", value="consensus")]
+         if spec.gate.on == "consensus" and where.raw.get("bootstrap") is None else [])
 
 
 def _column_rules(spec: Spec, where: _Where) -> list[Problem]:

@@ -355,10 +355,34 @@ def test_not_available_in_this_version(tmp_path: Path) -> None:
     assert "loglik, aic, bic, bdeu, k2" in score.message
     kind = only(problems, "dataset.columns.peak.kind")
     assert kind.line == 5 and "available kinds: discrete" in kind.message
-    for section, line in (("bootstrap", 8), ("fit", 9), ("evaluation", 10)):
+    for section, line in (("fit", 9), ("evaluation", 10)):
         problem = only(problems, section)
         assert problem.line == line
         assert "not available in this version of dagmill" in problem.message
+    assert not [p for p in problems if (p.key or "").startswith("bootstrap")]
+
+
+def test_bootstrap_section_is_read_with_defaults(tmp_path: Path) -> None:
+    spec = load_spec(write(tmp_path, BASE + "bootstrap: {replicates: 20}\n"
+                           "gate: {on: consensus}\n"))
+    assert spec.bootstrap is not None
+    assert (spec.bootstrap.replicates, spec.bootstrap.seed, spec.bootstrap.threshold) == (
+        20, 0, 0.5)
+    assert spec.gate.on == "consensus"
+
+
+@pytest.mark.parametrize(("text", "key", "words"), [
+    ("bootstrap: {replicates: 0}\n", "bootstrap.replicates", "at least 1"),
+    ("bootstrap: {replicates: -3}\n", "bootstrap.replicates", "at least 1"),
+    ("bootstrap: {replicates: 5, threshold: 0}\n", "bootstrap.threshold", "greater than 0"),
+    ("bootstrap: {replicates: 5, threshold: 1.5}\n", "bootstrap.threshold", "at most 1"),
+    ("bootstrap: {threshold: 0.5}\n", "bootstrap.replicates", "is required"),
+    ("gate: {on: consensus}\n", "gate.on", "needs a bootstrap section"),
+])
+def test_bad_bootstrap_settings_are_refused(tmp_path: Path, text: str, key: str,
+                                            words: str) -> None:
+    problem = only(problems_of(write(tmp_path, BASE + text)), key)
+    assert words in problem.message and problem.line == 4
 
 
 @pytest.mark.parametrize(("search", "key"), [
