@@ -8,8 +8,10 @@ on the engine, the number of workers or the order in which units finish.
 
 * ``local`` (default): a process pool of ``--workers N`` processes (default: the number of
   cores this process may use); ``N = 1`` runs the units in this process. Workers are
-  started with ``spawn`` (a fresh interpreter each: no state inherited from the parent).
-  ``shared`` reaches each worker once, through the pool's initializer.
+  forked when the platform can and this process runs a single thread (they then start
+  without importing anything again), else spawned (a fresh interpreter each). ``shared``
+  reaches each worker once, through the pool's initializer; no result depends on
+  anything else a worker inherits.
 * ``dask-local``: a ``distributed.LocalCluster`` on 127.0.0.1 with ``N`` single-threaded
   worker processes, started for the command and closed after it.
 * ``dask://HOST:PORT``: the Dask scheduler at that address (Dask's own ``dask scheduler``
@@ -27,6 +29,7 @@ import concurrent.futures as cf
 import multiprocessing
 import os
 import re
+import threading
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any, TypeVar
@@ -161,7 +164,7 @@ def _call(item: Any) -> Any:
 
 
 class LocalPool(Engine):
-    """A pool of ``workers`` spawned processes, started anew for each :meth:`map`."""
+    """A pool of ``workers`` processes, started anew for each :meth:`map`."""
 
     parallel = True
 
@@ -173,7 +176,10 @@ class LocalPool(Engine):
             progress: Progress | None = None) -> list[R]:
         if self.workers <= 1 or len(items) <= 1:
             return InProcess().map(fn, shared, items, progress)
-        context = multiprocessing.get_context("spawn")
+        single = threading.active_count() == 1
+        method = "fork" if single and "fork" in multiprocessing.get_all_start_methods() else (
+            "spawn")
+        context = multiprocessing.get_context(method)
         results: list[Any] = [None] * len(items)
         with cf.ProcessPoolExecutor(max_workers=min(self.workers, len(items)),
                                     mp_context=context, initializer=_install,
