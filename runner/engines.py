@@ -191,8 +191,7 @@ class LocalPool(Engine):
                     if progress is not None:
                         progress.advance()
             except BaseException:
-                for future in futures:
-                    future.cancel()
+                pool.shutdown(wait=False, cancel_futures=True)
                 raise
         return results
 

@@ -158,7 +158,12 @@ class RunResult:
         if self.twin is None:
             return None
         return (self.twin["graph_sha256"] == self.record["graph_sha256"]
-                and self.twin["score"]["value"] == self.record["score"]["value"])
+                and self.twin["score"]["value"] == self.record["score"]["value"]
+                and _consensus_hash(self.twin) == _consensus_hash(self.record))
+
+
+def _consensus_hash(record: dict[str, Any]) -> str | None:
+    return ((record.get("bootstrap") or {}).get("consensus") or {}).get("graph_sha256")
 
 
 def run_search(

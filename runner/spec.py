@@ -557,7 +557,7 @@ def _partial_spec(data: dict[str, Any], broken: frozenset[str]) -> Spec | None:
     good = copy.deepcopy(data)
     for key in broken:
         _drop(good, key.split(".") if key else [])
-    for section in LATER_SECTIONS:
+    for section in (*LATER_SECTIONS, "bootstrap"):  # a broken section goes whole
         if any(_overlaps(section, key) for key in broken):
             good.pop(section, None)
     good.setdefault("name", "stand-in")

@@ -164,3 +164,22 @@ def test_bad_bootstrap_in_any_spec_stores_nothing(tmp_path: Path) -> None:
         assert done.returncode == 2
         assert "bad.yaml:" in done.stderr and key in done.stderr
         assert _no_runs(tmp_path)
+
+
+@pytest.mark.slow
+def test_dask_local_engine_from_the_command_line(tmp_path: Path) -> None:
+    spec = write_case(tmp_path)
+    spec.write_text(spec.read_text() + BOOT)
+    local = dagmill("run", str(spec), "--workers", "1", "--json", "--results", "r",
+                    cwd=tmp_path)
+    assert local.returncode == 0, local.stderr
+    clustered = dagmill("run", str(spec), "--engine", "dask-local", "--workers", "2",
+                        "--json", "--results", "r", cwd=tmp_path)
+    assert clustered.returncode == 0, clustered.stderr
+    (run,) = json.loads(clustered.stdout)["runs"]
+    assert run["twin"] == {"run_id": json.loads(local.stdout)["runs"][0]["run_id"],
+                           "identical": True}
+    records = [json.loads(p.read_text()) for p in sorted(tmp_path.glob("r/*/runs/*/run.json"))]
+    assert len(records) == 2
+    assert comparable({**records[0], "run_id": None}) == comparable({**records[1],
+                                                                     "run_id": None})

@@ -665,3 +665,12 @@ def test_any_text_gives_a_spec_or_located_problems(parts: list[str], noise: str)
         except InputError as exc:
             assert exc.problems
             assert all(p.file == str(path) and p.message for p in exc.problems)
+
+
+def test_a_broken_bootstrap_does_not_hide_the_rest(tmp_path: Path) -> None:
+    path = write(tmp_path, BASE + "tiers: [[a], [a]]\nbootstrap: {replicates: 0}\n")
+    with pytest.raises(InputError) as caught:
+        load_spec(path)
+    keys = {p.key for p in caught.value.problems}
+    assert {"bootstrap.replicates", "tiers.1.0"} <= keys
+    assert isinstance(caught.value.partial_spec, Spec)  # the data can still be checked
