@@ -39,6 +39,7 @@ from runner.progress import Progress
 
 ENGINE_ENV = "DAGMILL_ENGINE"
 CONNECT_SECONDS = 3.0
+WORKER_WAIT_SECONDS = 10.0
 ENGINE_NAMES = ("local", "dask-local", "dask://HOST:PORT")
 _DASK_ADDRESS = re.compile(r"^dask://(?P<host>\[[0-9a-fA-F:.]+\]|[A-Za-z0-9_.-]+):(?P<port>\d{1,5})$")
 
@@ -224,6 +225,14 @@ class DaskEngine(Engine):
                 "and workers with `dask worker tcp://HOST:PORT`, or use --engine local",
                 key="--engine")) from None
         self.label = choice.label
+        try:
+            self.client.wait_for_workers(1, timeout=WORKER_WAIT_SECONDS)
+        except (OSError, TimeoutError):
+            self.client.close()
+            raise InputError(Problem(
+                "command line", f"the Dask scheduler at {choice.label} has no workers (none "
+                f"joined within {WORKER_WAIT_SECONDS:g} s); start some with `dask worker "
+                f"{choice.address}`", key="--engine")) from None
 
     @classmethod
     def attach(cls, client: Any, label: str = "dask") -> DaskEngine:

@@ -183,3 +183,36 @@ def test_dask_local_engine_from_the_command_line(tmp_path: Path) -> None:
     assert len(records) == 2
     assert comparable({**records[0], "run_id": None}) == comparable({**records[1],
                                                                      "run_id": None})
+
+
+@pytest.mark.slow
+def test_dask_scheduler_without_workers(tmp_path: Path) -> None:
+    from distributed import LocalCluster
+
+    spec = write_case(tmp_path)
+    spec.write_text(spec.read_text() + BOOT)
+    with LocalCluster(n_workers=0, host="127.0.0.1", dashboard_address=None) as cluster:
+        address = cluster.scheduler_address.removeprefix("tcp://")
+        done = dagmill("run", str(spec), "--engine", f"dask://{address}", "--results",
+                       "results", cwd=tmp_path)
+    assert done.returncode == 2
+    assert "has no workers" in done.stderr and "Traceback" not in done.stderr
+    assert _no_runs(tmp_path)
+
+
+@pytest.mark.slow
+def test_dask_address_from_the_command_line(tmp_path: Path) -> None:
+    from distributed import LocalCluster
+
+    spec = write_case(tmp_path)
+    spec.write_text(spec.read_text() + BOOT)
+    local = dagmill("run", str(spec), "--workers", "1", "--json", "--results", "r",
+                    cwd=tmp_path)
+    assert local.returncode == 0, local.stderr
+    with LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1",
+                      dashboard_address=None) as cluster:
+        address = cluster.scheduler_address.removeprefix("tcp://")
+        remote = dagmill("run", str(spec), "--json", "--results", "r", cwd=tmp_path,
+                         env={"DAGMILL_ENGINE": f"dask://{address}"})
+    assert remote.returncode == 0, remote.stderr
+    assert json.loads(remote.stdout)["runs"][0]["twin"]["identical"] is True
