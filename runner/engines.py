@@ -169,17 +169,20 @@ class LocalPool(Engine):
 
     parallel = True
 
-    def __init__(self, workers: int) -> None:
+    def __init__(self, workers: int, start_method: str | None = None) -> None:
         self.workers = workers
+        self.start_method = start_method  # None: fork when safe, else spawn
         self.label = f"local ({workers} workers)"
 
     def map(self, fn: Callable[[S, T], R], shared: S, items: Sequence[T],
             progress: Progress | None = None) -> list[R]:
         if self.workers <= 1 or len(items) <= 1:
             return InProcess().map(fn, shared, items, progress)
-        single = threading.active_count() == 1
-        method = "fork" if single and "fork" in multiprocessing.get_all_start_methods() else (
-            "spawn")
+        method = self.start_method
+        if method is None:
+            single = threading.active_count() == 1
+            method = "fork" if single and "fork" in multiprocessing.get_all_start_methods() else (
+                "spawn")
         context = multiprocessing.get_context(method)
         results: list[Any] = [None] * len(items)
         with cf.ProcessPoolExecutor(max_workers=min(self.workers, len(items)),

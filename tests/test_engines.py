@@ -78,6 +78,7 @@ def test_bad_engine_choices(engine: str | None, workers: int | None, env: dict[s
 
 @pytest.mark.slow
 def test_bootstrap_record_is_identical_on_every_engine(tmp_path: Path) -> None:
+    # Engines: in process, local pool (fork and spawn), LocalCluster with 2 worker processes.
     # Compared: the whole record as JSON bytes except created_utc and seconds; that
     # includes the graph hash, the frequency table and the consensus network.
     from distributed import Client, LocalCluster
@@ -87,13 +88,15 @@ def test_bootstrap_record_is_identical_on_every_engine(tmp_path: Path) -> None:
     prepared = prepare(spec)
     serial, _ = learn(prepared, engine=InProcess())
     pooled, _ = learn(prepared, engine=LocalPool(2))
+    spawned, _ = learn(prepared, engine=LocalPool(2, start_method="spawn"))
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
                       dashboard_address=None) as cluster, Client(cluster) as client:
         clustered, _ = learn(prepared, engine=DaskEngine.attach(client, "test cluster"))
     frequencies = serial["bootstrap"]["frequencies"]
     assert frequencies and all(0.0 <= r[k] <= 1.0 for r in frequencies
                                for k in ("directed", "class", "adjacent"))
-    assert comparable(serial) == comparable(pooled) == comparable(clustered)
+    assert comparable(serial) == comparable(pooled) == comparable(spawned) == comparable(
+        clustered)
     one_worker, _ = learn(prepared, engine=LocalPool(1))
     assert comparable(one_worker) == comparable(serial)
 
