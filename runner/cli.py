@@ -11,17 +11,19 @@ from __future__ import annotations
 import argparse
 import json
 import sys
-import time
 from collections.abc import Sequence
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 from runner import __version__, compare
+from runner.batch import run_specs
+from runner.engines import ENGINE_ENV, choose_engine, open_engine
 from runner.errors import InputError, Problem
 from runner.export import FORMATS, export
 from runner.format import render_table, summary_lines
 from runner.pipeline import run_spec, validate
+from runner.progress import Reporter
 from runner.spec import load_spec, spec_json_schema
 from runner.store import (
     atomic_write_text,
@@ -42,6 +44,14 @@ class _Parser(argparse.ArgumentParser):
         raise InputError(Problem("command line", message))
 
 
+def _engine_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="worker processes (default: the number of cores; 1: in this process)")
+    p.add_argument("--engine", metavar="ENGINE",
+                   help=f"local | dask-local | dask://HOST:PORT (default ${ENGINE_ENV} or local)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
+
+
 def _parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="dagmill", description=__doc__.splitlines()[0])
     parser.add_argument("--version", action="version", version=f"dagmill {__version__}")
@@ -57,6 +67,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, help="override search.seed")
     p.add_argument("--results", help="results folder (default $DAGMILL_RESULTS or ./results)")
     p.add_argument("--json", action="store_true")
+    _engine_options(p)
 
     p = sub.add_parser("show", help="a stored run's summary")
     p.add_argument("run", metavar="RUN")
@@ -81,6 +92,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--junit", metavar="FILE", help="write a JUnit XML report here")
     p.add_argument("--results")
     p.add_argument("--json", action="store_true")
+    _engine_options(p)
 
     p = sub.add_parser("history", help="the runs of a spec, oldest first")
     p.add_argument("spec", metavar="SPEC", help="a spec file or a spec name")
@@ -139,8 +151,11 @@ def _cmd_run(args: argparse.Namespace) -> int:
     if args.data is not None and len(args.specs) > 1:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
     rows, out, mismatch = [], [], False
-    for spec in args.specs:
-        result = run_spec(spec, root, data_path=args.data, seed=args.seed)
+    choice = choose_engine(args.engine, args.workers)
+    with open_engine(choice) as engine:
+        results = run_specs(args.specs, root, engine, data_path=args.data, seed=args.seed,
+                            reporter=Reporter(args.quiet))
+    for result in results:
         if not args.json:
             _warn(result.warnings)
         twin = None
@@ -231,9 +246,11 @@ def _cmd_check(args: argparse.Namespace) -> int:
     if args.data is not None and len(args.specs) > 1:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
     reports, seconds, texts = [], {}, []
-    for spec in args.specs:
-        started = time.perf_counter()
-        result = run_spec(spec, root, data_path=args.data)
+    choice = choose_engine(args.engine, args.workers)
+    with open_engine(choice) as engine:
+        results = run_specs(args.specs, root, engine, data_path=args.data,
+                            reporter=Reporter(args.quiet))
+    for result in results:
         if not args.json:
             _warn(result.warnings)
         record = result.record
@@ -247,7 +264,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
                 read_run(pinned)  # refuses a hand-edited baseline run (exit 2)
             report = compare.evaluate_gate(baseline, record, record["spec"]["gate"])
         report["folder"] = str(result.folder)
-        seconds[record["spec_name"]] = time.perf_counter() - started
+        seconds[record["spec_name"]] = record["seconds"]["total"]
         reports.append(report)
         texts.append(compare.check_table(report))
     ok = all(r["ok"] for r in reports)

@@ -16,6 +16,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
+from runner.bootstrap import consensus_view
 from runner.data import load_dataset, loader_settings
 from runner.errors import InputError, Problem
 from runner.evaluation import held_out_comparison, held_out_comparison_lines
@@ -277,7 +278,17 @@ def compare_records(a: Mapping[str, Any], b: Mapping[str, Any],
         "columns": column_changes(a["data"]["columns"], b["data"]["columns"]),
         "held_out": held_out_comparison(a, b),
         **graph_diff(a, b),
+        "consensus": _consensus_diff(a, b),
     }
+
+
+def _consensus_diff(a: Mapping[str, Any], b: Mapping[str, Any]) -> dict[str, Any] | None:
+    """The structural comparison of two runs' bootstrap consensus networks, if both have one."""
+    va, vb = consensus_view(a), consensus_view(b)
+    if va is None or vb is None:
+        return None
+    return {"a_graph_sha256": va["graph_sha256"], "b_graph_sha256": vb["graph_sha256"],
+            **graph_diff(va, vb)}
 
 
 # --------------------------------------------------------------------------- gate
@@ -291,10 +302,26 @@ def evaluate_gate(baseline: Mapping[str, Any], record: Mapping[str, Any],
     Otherwise: the per-row score may drop by at most ``score_tolerance`` (relative), the
     CPDAG may change in at most ``max_edge_changes`` node pairs, and columns, kinds and
     state sets must match unless ``allow_new_states``. Every change is listed either way.
+
+    With ``on: consensus`` the graphs held against each other (edge changes, the graph
+    hash of the determinism check) are the bootstrap consensus networks; the score is
+    still the single run's. A side without a consensus network fails the check.
     """
     failures: list[str] = []
     notes: list[str] = []
     same_inputs = baseline["input_sha256"] == record["input_sha256"]
+    on = str(gate.get("on", "run"))
+    run_hashes = (baseline["graph_sha256"], record["graph_sha256"])
+    if on == "consensus":
+        views = consensus_view(baseline), consensus_view(record)
+        if views[0] is None:
+            failures.append(f"gate.on is consensus but baseline {baseline['run_id']} has no "
+                            "bootstrap consensus network; pin a run learned with bootstrap")
+        if views[1] is None:
+            failures.append("gate.on is consensus but the new run has no bootstrap consensus "
+                            "network")
+        if views[0] is not None and views[1] is not None:
+            baseline, record = views[0], views[1]
     diff = graph_diff(baseline, record)
     score = score_delta(baseline, record)
     columns = column_changes(baseline["data"]["columns"], record["data"]["columns"])
@@ -302,12 +329,15 @@ def evaluate_gate(baseline: Mapping[str, Any], record: Mapping[str, Any],
     max_changes = int(gate.get("max_edge_changes", 0))
     allow_states = bool(gate.get("allow_new_states", False))
     if same_inputs:
-        if (baseline["graph_sha256"] != record["graph_sha256"]
+        if (baseline["graph_sha256"] != record["graph_sha256"] or run_hashes[0] != run_hashes[1]
                 or baseline["score"]["value"] != record["score"]["value"]):
             failures.append(
                 "non-determinism: same inputs as the baseline (input hash "
                 f"{record['input_sha256'][:10]}) but a different "
-                + ("graph" if baseline["graph_sha256"] != record["graph_sha256"] else "score"))
+                + ("consensus graph" if baseline["graph_sha256"] != record["graph_sha256"]
+                   and on == "consensus" else "graph"
+                   if baseline["graph_sha256"] != record["graph_sha256"]
+                   or run_hashes[0] != run_hashes[1] else "score"))
     else:
         drop = -score["relative_per_row"]
         if not score["comparable"]:
@@ -346,7 +376,7 @@ def evaluate_gate(baseline: Mapping[str, Any], record: Mapping[str, Any],
         "edges": diff["edges"], "shd_dag": diff["shd_dag"], "shd_cpdag": diff["shd_cpdag"],
         "cpdag_changes": diff["cpdag_changes"],
         "gate": {"score_tolerance": tolerance, "max_edge_changes": max_changes,
-                 "allow_new_states": allow_states},
+                 "allow_new_states": allow_states, "on": on},
     }
 
 
@@ -435,6 +465,13 @@ def compare_lines(result: Mapping[str, Any]) -> list[str]:
     lines.append(f"SHD        DAG {result['shd_dag']}  CPDAG {result['shd_cpdag']}   skeleton "
                  f"precision {sk['precision']:.3f} recall {sk['recall']:.3f} (B against A)")
     lines.append(f"verdict    {result['verdict']}")
+    cons = result.get("consensus")
+    if cons is not None:
+        e = cons["edges"]
+        lines.append(f"consensus  {len(e['added'])} added, {len(e['removed'])} removed, "
+                     f"{len(e['reversed'])} reversed (A -> B); SHD DAG {cons['shd_dag']} "
+                     f"CPDAG {cons['shd_cpdag']}; verdict {cons['verdict']}")
+        lines += ["  " + line for line in describe_edges(cons)]
     return lines
 
 
@@ -462,7 +499,8 @@ def check_table(report: Mapping[str, Any]) -> str:
          f"{s['b']['per_row']:.6f}",
          f"{s['relative_per_row']:+.3e} vs tol {g['score_tolerance']:g}: "
          + (ok if score_ok else "FAIL")],
-        ["class edge changes", "", str(report["shd_cpdag"]),
+        ["class edge changes" + (" (consensus)" if g.get("on") == "consensus" else ""), "",
+         str(report["shd_cpdag"]),
          f"max {g['max_edge_changes']}: " + (ok if edges_ok else "FAIL")],
         ["columns and states", "", "changed" if cols["changed"] else "same",
          (ok if not cols["changed"] or g["allow_new_states"] else "FAIL")],

@@ -6,6 +6,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from runner.bootstrap import confidence_lines
 from runner.evaluation import held_out_lines
 
 
@@ -56,6 +57,7 @@ def summary_lines(record: dict[str, Any], folder: Path | None = None) -> list[st
     if model:
         lines.append(f"model      {model['file']}  {model['estimator']}, pseudo-count "
                      f"{model['pseudo_count']:g}  sha256 {model['sha256']}")
+    lines += confidence_lines(record)
     lines.append("")
     lines.append("caution: " + record.get("caution", ""))
     return lines

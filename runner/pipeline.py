@@ -8,7 +8,7 @@ from __future__ import annotations
 import hashlib
 import platform
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -18,13 +18,16 @@ import numpy as np
 import pandas
 import pydantic
 
+from runner.bootstrap import ReplicateJob, bootstrap_block, replicate_seeds, run_replicate
 from runner.codeversion import code_sha256, code_version
 from runner.constraints import Constraints, build_constraints
 from runner.data import Dataset, load_dataset, loader_settings
+from runner.engines import Engine, InProcess
 from runner.errors import InputError, Problem
-from runner.evaluation import held_out_fit, learning_rows
+from runner.evaluation import held_out_fit, learning_rows, split_rows
 from runner.fit import DEFAULT_PSEUDO_COUNT, fit_discrete, model_document
 from runner.graph import edges_from_parents, graph_sha256
+from runner.progress import SILENT, Progress, Reporter
 from runner.scores import SCORE_EQUIVALENT, FamilyScorer, build_scorer
 from runner.search import (
     DEFAULT_KICK,
@@ -157,15 +160,23 @@ class RunResult:
         if self.twin is None:
             return None
         return (self.twin["graph_sha256"] == self.record["graph_sha256"]
-                and self.twin["score"]["value"] == self.record["score"]["value"])
+                and self.twin["score"]["value"] == self.record["score"]["value"]
+                and _consensus_hash(self.twin) == _consensus_hash(self.record))
+
+
+def _consensus_hash(record: dict[str, Any]) -> str | None:
+    return ((record.get("bootstrap") or {}).get("consensus") or {}).get("graph_sha256")
 
 
 def run_search(
-    prepared: Prepared, scorer: FamilyScorer, budget: Budget, rng: np.random.Generator
+    prepared: Prepared, scorer: FamilyScorer, budget: Budget, rng: np.random.Generator,
+    bar: Progress | None = None,
 ) -> tuple[SearchOutcome, list[RunSummary], dict[str, Any], dict[str, Any]]:
     """Run the spec's search method; return its outcome, the runs of a restarted local
-    search, the method's parameters and any extra record fields."""
+    search, the method's parameters and any extra record fields. ``bar`` is advanced by
+    exact search (per variable and layer) and restarts (per run)."""
     search, names, constraints = prepared.spec.search, prepared.dataset.names, prepared.constraints
+    tick = None if bar is None else bar.advance
     parameters: dict[str, Any] = {}
     if search.method == "order":
         order = total_order(prepared.spec, names)
@@ -178,7 +189,7 @@ def run_search(
     if search.method == "exact":
         outcome, counts = exact_search(scorer, constraints, budget, list(names),
                                        variable_limit=search.max_variables,
-                                       candidate_limit=search.max_candidate_sets)
+                                       candidate_limit=search.max_candidate_sets, tick=tick)
         parameters.update(max_variables=search.max_variables,
                           max_candidate_sets=search.max_candidate_sets)
         return outcome, [], parameters, {"candidate_sets": counts,
@@ -190,7 +201,7 @@ def run_search(
                           tabu_tenure=search.tabu_tenure, patience=search.patience)
     kick = search.kick or DEFAULT_KICK
     outcome, runs = with_restarts(method, lambda ps: MoveEngine(scorer, constraints, ps), start,
-                                  budget, rng, search.restarts, kick)
+                                  budget, rng, search.restarts, kick, tick=tick)
     parameters["restarts"] = search.restarts
     if search.restarts:
         parameters["kick"] = kick
@@ -202,11 +213,62 @@ def run_search(
     return outcome, runs, parameters, {"proven_optimal": False}
 
 
-def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], str]:
+def search_on(prepared: Prepared, dataset: Dataset,
+              rng: np.random.Generator) -> tuple[list[tuple[int, ...]], bool]:
+    """The spec's score and search on ``dataset`` (the prepared columns, other rows: a
+    bootstrap replicate); the learned parent sets and whether the search converged."""
+    spec = prepared.spec
+    scorer = build_scorer(spec.score.name, dataset.codes, dataset.arities, ess=spec.score.ess)
+    b = spec.search.budget
+    outcome, *_ = run_search(prepared, scorer, Budget(b.max_steps, b.max_evaluations,
+                                                      b.max_seconds), rng)
+    return [tuple(ps) for ps in outcome.parent_sets], outcome.converged
+
+
+def _search_bar(prepared: Prepared, reporter: Reporter) -> Progress | None:
+    search, n = prepared.spec.search, len(prepared.dataset.names)
+    if search.method == "exact":
+        return reporter.bar(f"exact {prepared.spec.name}", 2 * n)
+    if search.method not in ("order",) and search.restarts:
+        return reporter.bar(f"restarts {prepared.spec.name}", search.restarts + 1)
+    return None
+
+
+def learn_bootstrap(prepared: Prepared, engine: Engine | None = None,
+                    reporter: Reporter = SILENT) -> dict[str, Any] | None:
+    """The record's ``bootstrap`` section (None without one in the spec): the replicates
+    run as units on ``engine`` (default: in this process), gathered in index order."""
+    boot = prepared.spec.bootstrap
+    if boot is None:
+        return None
+    items = list(enumerate(replicate_seeds(boot.seed, boot.replicates)))
+    with reporter.bar(f"bootstrap {prepared.spec.name}", len(items)) as bar:
+        results = (engine or InProcess()).map(run_replicate, ReplicateJob(prepared, search_on),
+                                              items, bar)
+    return bootstrap_block(prepared.dataset.names, results, boot.seed, boot.threshold,
+                           prepared.constraints)
+
+
+def learning_part(prepared: Prepared) -> Prepared:
+    """The prepared spec on its learning rows: all rows, or those an ``evaluation``
+    section does not hold out."""
+    evaluation = prepared.spec.evaluation
+    if evaluation is None:
+        return prepared
+    learn_rows, _ = split_rows(prepared.dataset.rows, evaluation.holdout, evaluation.seed)
+    return replace(prepared, dataset=prepared.dataset.take_rows(learn_rows))
+
+
+def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = None,
+          reporter: Reporter = SILENT) -> tuple[dict[str, Any], str]:
     """Learn the structure of a prepared spec; return the record (without run id) and trace.
 
+    With a ``bootstrap`` section the replicates run on ``engine`` after the main search;
+    the single run on all rows stays the record's result (with an ``evaluation`` section,
+    both use the learning rows only).
+
     The fitted tables (``model.json``) are returned in the record under the private key
-    ``_model``, which :func:`run_spec` takes out and stores beside ``run.json``."""
+    ``_model``, which :func:`store_learned` takes out and stores beside ``run.json``."""
     started = time.perf_counter()
     spec, dataset = prepared.spec, prepared.dataset
     names = dataset.names
@@ -222,7 +284,15 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
     budget = Budget(b.max_steps, b.max_evaluations, b.max_seconds)
     rng = np.random.default_rng(np.random.SeedSequence(effective_seed))
     try:
-        outcome, runs, parameters, extra = run_search(prepared, scorer, budget, rng)
+        bar = _search_bar(prepared, reporter)
+        try:
+            outcome, runs, parameters, extra = run_search(prepared, scorer, budget, rng, bar)
+        finally:
+            if bar is not None:
+                bar.close()
+        boot_started = time.perf_counter()
+        bootstrap = learn_bootstrap(learning_part(prepared), engine, reporter)
+        boot_seconds = time.perf_counter() - boot_started
     except SearchRefused as refused:
         raise InputError(Problem(prepared.spec_display, refused.message,
                                  line=spec.line_of(refused.key), key=refused.key)) from None
@@ -300,6 +370,9 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
                               rows_held_out=split["rows_held_out"])
         record["evaluation"] = {**split, **held_out_fit(
             codes, held_codes, dataset.arities, fitted, pseudo_count, names)}
+    if bootstrap is not None:
+        record["bootstrap"] = bootstrap
+        record["seconds"]["bootstrap"] = round(boot_seconds, 6)
     trace = trace_csv(
         (r.step, r.move, names[r.source], names[r.target], r.delta, r.score)
         for r in outcome.trace
@@ -308,10 +381,18 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
 
 
 def run_spec(spec_path: str | Path, results: Path, data_path: str | Path | None = None,
-             seed: int | None = None) -> RunResult:
+             seed: int | None = None, engine: Engine | None = None,
+             reporter: Reporter = SILENT) -> RunResult:
     """Prepare, learn and store one spec; report an earlier run with the same inputs."""
     prepared = prepare(spec_path, data_path)
-    record, trace = learn(prepared, seed)
+    record, trace = learn(prepared, seed, engine, reporter)
+    return store_learned(prepared, record, trace, results)
+
+
+def store_learned(prepared: Prepared, record: dict[str, Any], trace: str,
+                  results: Path) -> RunResult:
+    """Store a learned record under a fresh run id (its fitted model beside it); report an
+    earlier twin."""
     model = record.pop("_model")
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     record["run_id"] = f"{stamp}-{record['input_sha256'][:10]}"

@@ -51,7 +51,7 @@ from runner.errors import InputError, Problem
 IMPLEMENTED_SCORES = ("loglik", "aic", "bic", "bdeu", "k2")
 IMPLEMENTED_METHODS = ("hill-climb", "first-ascent", "stochastic", "tabu", "order", "exact")
 IMPLEMENTED_KINDS = ("discrete",)
-LATER_SECTIONS = ("bootstrap",)
+LATER_SECTIONS: tuple[str, ...] = ()
 
 NAME_PATTERN = r"^[a-z0-9]+(-[a-z0-9]+)*$"
 SHA256_PATTERN = r"^[0-9a-f]{64}$"
@@ -209,7 +209,7 @@ class GateSpec(_Section):
 
 
 class BootstrapSpec(_Section):
-    """Resampled re-learning for edge confidence (a later capability)."""
+    """Resampled re-learning for edge confidence (Friedman, Goldszmidt & Wyner 1999)."""
 
     replicates: PositiveCount = Field(description="Number of resampled data sets.")
     seed: Count = Field(0, description="Seed of the resampling.")
@@ -255,7 +255,8 @@ class Spec(_Section):
     score: ScoreSpec = Field(default_factory=ScoreSpec, description="The score.")
     search: SearchSpec = Field(default_factory=SearchSpec, description="The search.")
     gate: GateSpec = Field(default_factory=GateSpec, description="What a re-check enforces.")
-    bootstrap: BootstrapSpec | None = Field(None, description="Bootstrap (later capability).")
+    bootstrap: BootstrapSpec | None = Field(
+        None, description="Bootstrap edge confidence and a consensus graph.")
     fit: FitSpec | None = Field(None, description="Fitting the conditional probability "
                                 "tables (pseudo_count 1.0 when absent).")
     evaluation: EvaluationSpec | None = Field(
@@ -558,7 +559,7 @@ def _partial_spec(data: dict[str, Any], broken: frozenset[str]) -> Spec | None:
     good = copy.deepcopy(data)
     for key in broken:
         _drop(good, key.split(".") if key else [])
-    for section in LATER_SECTIONS:
+    for section in (*LATER_SECTIONS, "bootstrap"):  # a broken section goes whole
         if any(_overlaps(section, key) for key in broken):
             good.pop(section, None)
     good.setdefault("name", "stand-in")
@@ -780,9 +781,10 @@ def _later_sections(spec: Spec, where: _Where) -> list[Problem]:
         where.problem(name, f"'{name}' is not available in this version of dagmill; "
                       "available sections: " + ", ".join(available))
         for name in LATER_SECTIONS if where.raw.get(name) is not None
-    ] + ([where.problem("gate.on", "gating on 'consensus' needs bootstrap, which is not "
-                        "available in this version of dagmill; use 'run'", value="consensus")]
-         if spec.gate.on == "consensus" else [])
+    ] + ([where.problem("gate.on", "gating on 'consensus' needs a bootstrap section "
+                        "(bootstrap: {replicates: N, seed: S, threshold: T}); add one or use "
+                        "'run'", value="consensus")]
+         if spec.gate.on == "consensus" and where.raw.get("bootstrap") is None else [])
 
 
 def _holdout_needs_pseudo_count(spec: Spec, where: _Where) -> list[Problem]:

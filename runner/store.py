@@ -155,6 +155,14 @@ def read_run(folder: Path) -> dict[str, Any]:
             str(path), "record content does not match its graph_sha256: the edges were "
             "edited by hand; restore the file from version control or re-run the spec",
             key="edges"))
+    boot = record.get("bootstrap")
+    if isinstance(boot, dict) and "consensus" in boot:
+        cons = boot["consensus"]
+        if graph_sha256(cons.get("edges", [])) != cons.get("graph_sha256"):
+            raise InputError(Problem(str(path), "the bootstrap consensus edges do not match "
+                                     "their graph_sha256 (edited by hand); restore the file "
+                                     "from version control or re-run the spec",
+                                     key="bootstrap.consensus.edges"))
     read_model(folder, record)
     return record
 
@@ -248,7 +256,19 @@ def baseline_from_record(record: dict[str, Any], pinned_utc: str) -> dict[str, A
                  "columns": {n: {"kind": c["kind"], "states": list(c["states"])}
                              for n, c in data["columns"].items()}},
         "pinned_utc": pinned_utc,
+        **_consensus_of(record),
     }
+
+
+def _consensus_of(record: dict[str, Any]) -> dict[str, Any]:
+    """The bootstrap consensus network of a record, for its baseline (none without one)."""
+    boot = record.get("bootstrap")
+    if not boot:
+        return {}
+    cons = boot["consensus"]
+    return {"consensus": {"edges": [list(e) for e in cons["edges"]],
+                          "graph_sha256": cons["graph_sha256"],
+                          "replicates": boot["replicates"], "threshold": boot["threshold"]}}
 
 
 def read_baseline(root: Path, spec_name: str) -> dict[str, Any] | None:
@@ -269,6 +289,12 @@ def read_baseline(root: Path, spec_name: str) -> dict[str, Any] | None:
         raise InputError(Problem(str(path), "baseline content does not match its graph_sha256: "
                                  "the edges were edited by hand; restore it from version "
                                  "control or re-pin with `dagmill pin RUN`", key="edges"))
+    cons = doc.get("consensus")
+    if cons is not None and (not isinstance(cons, dict)
+                             or graph_sha256(cons.get("edges", [])) != cons.get("graph_sha256")):
+        raise InputError(Problem(str(path), "the baseline's consensus edges do not match their "
+                                 "graph_sha256; restore it from version control or re-pin with "
+                                 "`dagmill pin RUN`", key="consensus.edges"))
     return doc
 
 

@@ -133,3 +133,19 @@ def test_compare_shows_the_held_out_difference(stored: tuple[Path, dict, dict],
     assert held["delta_per_row"] == pytest.approx(held["b_per_row"] - held["a_per_row"])
     text = run("compare", record["run_id"], other_id, "--results", str(results)).stdout
     assert "held out   log-likelihood per row A" in text
+
+
+def test_bootstrap_replicates_resample_the_learning_rows_only(tmp_path: Path) -> None:
+    # With both sections, held-out rows stay out of every replicate as well as of the
+    # main search: the replicates resample the learning rows.
+    from runner.pipeline import learning_part, prepare
+
+    spec = demo_spec_with_holdout(tmp_path)
+    prepared = prepare(spec)
+    part = learning_part(prepared)
+    learned = prepared.dataset.rows - round(HOLDOUT * prepared.dataset.rows)
+    assert part.dataset.rows == learned
+    order = np.random.default_rng(np.random.SeedSequence(SEED)).permutation(
+        prepared.dataset.rows)
+    kept = np.sort(order[round(HOLDOUT * prepared.dataset.rows):])
+    assert np.array_equal(part.dataset.codes, prepared.dataset.codes[:, kept])

@@ -355,11 +355,9 @@ def test_not_available_in_this_version(tmp_path: Path) -> None:
     assert "loglik, aic, bic, bdeu, k2" in score.message
     kind = only(problems, "dataset.columns.peak.kind")
     assert kind.line == 5 and "available kinds: discrete" in kind.message
-    problem = only(problems, "bootstrap")
-    assert problem.line == 8
-    assert "not available in this version of dagmill" in problem.message
-    # fit and evaluation are available now
-    assert not [p for p in problems if p.key in ("fit", "evaluation")]
+    # bootstrap, fit and evaluation are all available now
+    assert not [p for p in problems
+                if (p.key or "").split(".")[0] in ("bootstrap", "fit", "evaluation")]
 
 
 def test_fit_and_evaluation_sections(tmp_path: Path) -> None:
@@ -377,6 +375,29 @@ def test_fit_and_evaluation_sections(tmp_path: Path) -> None:
                      ("evaluation: {holdout: 0.0}", "evaluation.holdout"),
                      ("fit: {pseudo_count: -1.0}", "fit.pseudo_count")):
         assert only(problems_of(write(tmp_path, BASE + bad + "\n")), key).line == 4
+
+
+def test_bootstrap_section_is_read_with_defaults(tmp_path: Path) -> None:
+    spec = load_spec(write(tmp_path, BASE + "bootstrap: {replicates: 20}\n"
+                           "gate: {on: consensus}\n"))
+    assert spec.bootstrap is not None
+    assert (spec.bootstrap.replicates, spec.bootstrap.seed, spec.bootstrap.threshold) == (
+        20, 0, 0.5)
+    assert spec.gate.on == "consensus"
+
+
+@pytest.mark.parametrize(("text", "key", "words"), [
+    ("bootstrap: {replicates: 0}\n", "bootstrap.replicates", "at least 1"),
+    ("bootstrap: {replicates: -3}\n", "bootstrap.replicates", "at least 1"),
+    ("bootstrap: {replicates: 5, threshold: 0}\n", "bootstrap.threshold", "greater than 0"),
+    ("bootstrap: {replicates: 5, threshold: 1.5}\n", "bootstrap.threshold", "at most 1"),
+    ("bootstrap: {threshold: 0.5}\n", "bootstrap.replicates", "is required"),
+    ("gate: {on: consensus}\n", "gate.on", "needs a bootstrap section"),
+])
+def test_bad_bootstrap_settings_are_refused(tmp_path: Path, text: str, key: str,
+                                            words: str) -> None:
+    problem = only(problems_of(write(tmp_path, BASE + text)), key)
+    assert words in problem.message and problem.line == 4
 
 
 @pytest.mark.parametrize(("search", "key"), [
@@ -659,3 +680,12 @@ def test_any_text_gives_a_spec_or_located_problems(parts: list[str], noise: str)
         except InputError as exc:
             assert exc.problems
             assert all(p.file == str(path) and p.message for p in exc.problems)
+
+
+def test_a_broken_bootstrap_does_not_hide_the_rest(tmp_path: Path) -> None:
+    path = write(tmp_path, BASE + "tiers: [[a], [a]]\nbootstrap: {replicates: 0}\n")
+    with pytest.raises(InputError) as caught:
+        load_spec(path)
+    keys = {p.key for p in caught.value.problems}
+    assert {"bootstrap.replicates", "tiers.1.0"} <= keys
+    assert isinstance(caught.value.partial_spec, Spec)  # the data can still be checked

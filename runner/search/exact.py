@@ -18,6 +18,8 @@ plus one family score per candidate parent set in step 1.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 
 from runner.constraints import Constraints
@@ -48,8 +50,10 @@ def exact_search(
     names: list[str],
     variable_limit: int = DEFAULT_VARIABLE_LIMIT,
     candidate_limit: int = DEFAULT_CANDIDATE_LIMIT,
+    tick: Callable[[], None] | None = None,
 ) -> tuple[SearchOutcome, dict[str, int]]:
-    """The optimal DAG; also the candidate parent sets scored per variable."""
+    """The optimal DAG; also the candidate parent sets scored per variable. ``tick`` (a
+    progress bar's) is called once per variable scored and once per layer of subsets."""
     n = constraints.n_vars
     if n > variable_limit:
         raise SearchRefused("search.method", (
@@ -83,6 +87,8 @@ def exact_search(
             scored += 1
         counts[names[v]] = scored
         _subset_max(best_score[v], best_set[v], n)
+        if tick is not None:
+            tick()
 
     # best sinks, layer by layer (sets of equal size)
     sizes = np.array([bin(m).count("1") for m in range(1 << n)])
@@ -99,6 +105,8 @@ def exact_search(
             better = candidate > network[members]  # strict: lowest v wins ties
             network[members[better]] = candidate[better]
             sink[members[better]] = v
+        if tick is not None:
+            tick()
     if not np.isfinite(network[full]):
         raise SearchRefused("required", "no DAG satisfies the constraints")
     parents: list[tuple[int, ...]] = [() for _ in range(n)]

@@ -54,14 +54,22 @@ def with_restarts(
     rng: np.random.Generator,
     restarts: int,
     kick_moves: int = DEFAULT_KICK,
+    tick: Callable[[], None] | None = None,
 ) -> tuple[SearchOutcome, list[RunSummary]]:
-    """Run ``local_search`` once from ``start``, then ``restarts`` times from kicked bests."""
+    """Run ``local_search`` once from ``start``, then ``restarts`` times from kicked bests.
+
+    ``tick`` (a progress bar's) is called after each run. The runs form a chain (each
+    starts from the best graph so far and spends the shared budget), so they run in
+    sequence, never as independent units on an engine.
+    """
     engine = make_engine(start)
     start_score = engine.score
     best = local_search(engine, budget)
     runs = [RunSummary(0, 0, start_score, best.score, best.steps, best.stop_reason)]
     trace = list(best.trace)
     steps, stop_reason = best.steps, best.stop_reason
+    if tick is not None:
+        tick()
     for run in range(1, restarts + 1):
         if budget.exhausted(steps, engine.scorer.evaluations) is not None:
             break
@@ -78,6 +86,8 @@ def with_restarts(
         stop_reason = outcome.stop_reason
         if outcome.score > best.score + engine.tolerance():
             best = outcome
+        if tick is not None:
+            tick()
     budget.spent_steps = 0
     final = replace(best, steps=steps, trace=trace, stop_reason=stop_reason,
                     evaluations=engine.scorer.evaluations, cache_hits=engine.scorer.hits,
