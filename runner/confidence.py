@@ -1,15 +1,14 @@
 """Bootstrap edge confidence read from a run record, where the record has one.
 
-A run learned with bootstrap resampling carries a ``bootstrap`` block with the share of
-replicates in which each directed edge appeared. This module is the one place that reads
-it, so exports and reports need not know its layout. Accepted layouts of the per-edge
-frequencies (under ``bootstrap.edges`` or ``bootstrap.frequencies``):
+A run learned with bootstrap resampling carries a ``bootstrap`` block (written by
+:mod:`runner.bootstrap`) whose ``frequencies`` list holds, per directed edge
+``{"edge": [a, b], "directed": d, "class": c, "adjacent": j}``: the shares of
+replicates whose DAG has ``a -> b``, whose equivalence class has it (compelled or
+undirected), and that join ``a`` and ``b`` either way. This module is the one place
+exports and reports read it; the confidence they draw is the ``directed`` share unless
+asked for another.
 
-* a list of ``{"from": a, "to": b, "frequency": f}`` items;
-* a list of ``[a, b, f]`` triples;
-* a mapping ``{"a -> b": f}``.
-
-A record without a ``bootstrap`` block (every run of this version) has no confidence.
+A record without a ``bootstrap`` block has no confidence.
 """
 
 from __future__ import annotations
@@ -20,26 +19,21 @@ from typing import Any
 Edge = tuple[str, str]
 
 
-def edge_confidence(record: Mapping[str, Any]) -> dict[Edge, float]:
-    """Directed edge -> share of bootstrap replicates holding it; empty without bootstrap."""
+SHARES = ("directed", "class", "adjacent")
+
+
+def edge_confidence(record: Mapping[str, Any], share: str = "directed") -> dict[Edge, float]:
+    """Directed edge -> its ``share`` of bootstrap replicates; empty without bootstrap."""
+    if share not in SHARES:
+        raise ValueError(f"unknown share {share!r}; one of {', '.join(SHARES)}")
     block = record.get("bootstrap")
-    if not isinstance(block, Mapping):
+    if not isinstance(block, Mapping) or not isinstance(block.get("frequencies"), list):
         return {}
-    items = block.get("edges", block.get("frequencies"))
     out: dict[Edge, float] = {}
-    if isinstance(items, Mapping):
-        for key, value in items.items():
-            a, _, b = str(key).partition("->")
-            if b and isinstance(value, int | float):
-                out[(a.strip(), b.strip())] = float(value)
-    elif isinstance(items, list):
-        for item in items:
-            if isinstance(item, Mapping) and {"from", "to"} <= item.keys():
-                f = item.get("frequency", item.get("confidence"))
-                if isinstance(f, int | float):
-                    out[(str(item["from"]), str(item["to"]))] = float(f)
-            elif isinstance(item, list | tuple) and len(item) == 3:
-                out[(str(item[0]), str(item[1]))] = float(item[2])
+    for item in block["frequencies"]:
+        if isinstance(item, Mapping) and isinstance(item.get(share), int | float):
+            a, b = item["edge"]
+            out[(str(a), str(b))] = float(item[share])
     return dict(sorted(out.items()))
 
 

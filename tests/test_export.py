@@ -78,10 +78,10 @@ def test_dot_parsed_back_by_pydot(stored_run: tuple[Path, dict]) -> None:
 
 
 def with_bootstrap(record: dict) -> dict:
-    """The record as a bootstrap run would extend it (layout read by runner/confidence.py)."""
+    """The record with a bootstrap block in runner/bootstrap.py's layout, made-up shares."""
     shares = [0.25 + 0.05 * i for i in range(len(record["edges"]))]
-    return {**record, "bootstrap": {"replicates": 20, "edges": [
-        {"from": a, "to": b, "frequency": f}
+    return {**record, "bootstrap": {"replicates": 20, "frequencies": [
+        {"edge": [a, b], "directed": f, "class": f, "adjacent": f}
         for (a, b), f in zip(record["edges"], shares, strict=True)]}}
 
 
@@ -130,3 +130,23 @@ def test_export_bad_input(stored_run: tuple[Path, dict]) -> None:
     assert missing.returncode == 2 and "does not exist" in missing.stderr
     assert "Traceback" not in unknown.stderr + missing.stderr
     assert not (folder / "no").exists()
+
+
+def test_confidence_of_a_real_bootstrap_run_reaches_the_graphml(tmp_path: Path) -> None:
+    # reference reader: networkx.read_graphml
+    text = (ROOT / "specs" / "kiln-line.yaml").read_text(encoding="utf-8")
+    text = text.replace("../datasets/", f"{ROOT / 'datasets'}/")
+    spec = tmp_path / "kiln-line.yaml"
+    spec.write_text(text + "bootstrap: {replicates: 3, seed: 1}\n", encoding="utf-8")
+    result = subprocess.run([sys.executable, "-m", "runner", "run", str(spec), "--results",
+                             str(tmp_path / "results"), "--json", "--workers", "1"],
+                            capture_output=True, text=True, timeout=600)
+    assert result.returncode == 0, result.stderr
+    record = json.loads((Path(json.loads(result.stdout)["runs"][0]["folder"])
+                         / "run.json").read_text())
+    directed = {tuple(r["edge"]): r["directed"] for r in record["bootstrap"]["frequencies"]}
+    out = tmp_path / "boot.graphml"
+    assert export(tmp_path, record, "graphml", "--out", str(out)).returncode == 0
+    graph = nx.read_graphml(out)
+    for a, b in record["edges"]:
+        assert graph.edges[a, b]["confidence"] == pytest.approx(directed.get((a, b), 0.0))
