@@ -222,7 +222,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
     reports, seconds, texts = [], {}, []
     for spec in args.specs:
         started = time.perf_counter()
-        result = run_spec(spec, root, data_path=args.data)
+        result = run_spec(spec, root, data_path=args.data, reuse_bins=True)
         if not args.json:
             _warn(result.warnings)
         record = result.record

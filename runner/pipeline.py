@@ -23,7 +23,8 @@ from runner.constraints import Constraints, build_constraints
 from runner.data import Dataset, load_dataset, loader_settings
 from runner.errors import InputError, Problem
 from runner.graph import edges_from_parents, graph_sha256
-from runner.scores import SCORE_EQUIVALENT, FamilyScorer, build_scorer
+from runner.kinds import make_scorer, resolve_columns, score_record
+from runner.scores import SCORE_EQUIVALENT, FamilyScorer
 from runner.search import (
     DEFAULT_KICK,
     DEFAULT_PATIENCE,
@@ -39,7 +40,7 @@ from runner.search.exact import exact_search
 from runner.search.order import order_search
 from runner.search.parent_sets import SearchRefused
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
-from runner.store import find_twin, trace_csv, write_run
+from runner.store import find_twin, read_baseline, trace_csv, write_run
 
 CAUTION = (
     "A learned structure is statistical association under assumptions (no hidden common "
@@ -58,13 +59,28 @@ class Prepared:
     data_display: str
     spec_display: str
     warnings: list[Problem] = field(default_factory=list)
+    columns: dict[str, dict[str, Any]] | None = None  # the record's data.columns
+    bins_fingerprint: str | None = None  # the bin cut points used, for the input hash
 
 
-def prepare(spec_path: str | Path, data_path: str | Path | None = None) -> Prepared:
+def baseline_bins(results: Path, spec_name: str) -> tuple[dict[str, dict[str, Any]], str]:
+    """The bins stored in a spec's baseline (column -> binning block) and its run id."""
+    baseline = read_baseline(results, spec_name)
+    if baseline is None:
+        return {}, ""
+    columns = (baseline.get("data") or {}).get("columns") or {}
+    bins = {n: c["binning"] for n, c in columns.items() if isinstance(c.get("binning"), dict)}
+    return bins, f"baseline run {baseline['run_id']}"
+
+
+def prepare(spec_path: str | Path, data_path: str | Path | None = None,
+            bins_from: Path | None = None) -> Prepared:
     """Load and check a spec and its data; raise InputError with every problem found.
 
     When the spec itself has problems but its ``dataset`` block is sound, the data and
-    the variable names are still checked, so one call reports everything.
+    the variable names are still checked, so one call reports everything. With
+    ``bins_from`` (a results folder) continuous columns are cut at the bin edges stored
+    in the spec's baseline there, when it has them for the same settings.
     """
     problems: list[Problem] = []
     try:
@@ -87,13 +103,25 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None) -> Prepa
         raise InputError(problems + exc.problems) from None
     warnings.extend(dataset.warnings)
     problems += check_spec_against_columns(spec, dataset.names, data_file=display)
+    stored, stored_from = baseline_bins(bins_from, spec.name) if bins_from else ({}, "")
+    normal = normalised_spec(spec)
+    try:
+        resolved = resolve_columns(
+            dataset, normal["dataset"]["columns"], normal["score"], spec_file=str(spec_path),
+            data_file=display, line_of=spec.line_of, stored_bins=stored,
+            stored_from=stored_from)
+    except InputError as exc:
+        raise InputError(problems + exc.problems) from None
     if problems:
         raise InputError(problems)
+    dataset = resolved.dataset
+    warnings.extend(resolved.warnings)
     constraints = build_constraints(
         dataset.names, spec.tiers, spec.within_tier, spec.forbidden, spec.required,
         spec.parent_cap,
     )
-    return Prepared(spec, dataset, constraints, display, str(spec_path), warnings)
+    return Prepared(spec, dataset, constraints, display, str(spec_path), warnings,
+                    resolved.columns, resolved.bins_fingerprint)
 
 
 def validate(spec_path: str | Path) -> tuple[list[Problem], list[Problem]]:
@@ -126,9 +154,12 @@ def total_order(spec: Spec, names: tuple[str, ...]) -> list[int]:
     return [index[n] for n in listed]
 
 
-def input_sha256(spec_hash: str, data_hash: str, version: str) -> str:
-    """The hash that names a run's inputs: spec hash, data hash and code version."""
-    return hashlib.sha256(f"{spec_hash}\n{data_hash}\n{version}".encode()).hexdigest()
+def input_sha256(spec_hash: str, data_hash: str, version: str, bins: str | None = None) -> str:
+    """The hash that names a run's inputs: spec hash, data hash and code version, and the
+    bin cut points of continuous columns when there are any (stored edges reused on a
+    new data drop are an input of their own)."""
+    text = f"{spec_hash}\n{data_hash}\n{version}" + (f"\n{bins}" if bins else "")
+    return hashlib.sha256(text.encode()).hexdigest()
 
 
 def environment() -> dict[str, str]:
@@ -208,9 +239,10 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
     effective_seed = spec.search.seed if seed is None else seed
     spec_hash = spec_sha256(spec, seed=seed)
     version = code_version()
-    inputs = input_sha256(spec_hash, dataset.sha256, version)
+    inputs = input_sha256(spec_hash, dataset.sha256, version, prepared.bins_fingerprint)
 
-    scorer = build_scorer(spec.score.name, dataset.codes, dataset.arities, ess=spec.score.ess)
+    score_spec = normalised_spec(spec)["score"]
+    scorer = make_scorer(score_spec, dataset)
     search = spec.search
     b = search.budget
     budget = Budget(b.max_steps, b.max_evaluations, b.max_seconds)
@@ -234,6 +266,7 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
     }
     if spec.score.name == "bdeu":
         score_block["ess"] = spec.score.ess
+    score_block.update(score_record(score_spec, len(names)))
     record: dict[str, Any] = {
         "run_id": None,
         "spec_name": spec.name,
@@ -249,8 +282,8 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
             "sha256": dataset.sha256,
             "rows": dataset.rows,
             "dropped_rows": dataset.dropped_rows,
-            "columns": {
-                n: {"kind": "discrete", "states": list(s), "kind_reason": "discrete by default"}
+            "columns": prepared.columns if prepared.columns is not None else {
+                n: {"kind": "discrete", "states": list(s), "kind_reason": "inferred-text"}
                 for n, s in zip(names, dataset.states, strict=True)
             },
         },
@@ -291,9 +324,14 @@ def learn(prepared: Prepared, seed: int | None = None) -> tuple[dict[str, Any], 
 
 
 def run_spec(spec_path: str | Path, results: Path, data_path: str | Path | None = None,
-             seed: int | None = None) -> RunResult:
-    """Prepare, learn and store one spec; report an earlier run with the same inputs."""
-    prepared = prepare(spec_path, data_path)
+             seed: int | None = None, reuse_bins: bool | None = None) -> RunResult:
+    """Prepare, learn and store one spec; report an earlier run with the same inputs.
+
+    ``reuse_bins`` (default: when ``data_path`` names a new data drop) cuts continuous
+    columns at the bin edges of the spec's baseline in ``results``.
+    """
+    reuse = data_path is not None if reuse_bins is None else reuse_bins
+    prepared = prepare(spec_path, data_path, bins_from=results if reuse else None)
     record, trace = learn(prepared, seed)
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     record["run_id"] = f"{stamp}-{record['input_sha256'][:10]}"

@@ -14,6 +14,7 @@ from hypothesis import strategies as st
 
 from runner.errors import InputError, Problem
 from runner.spec import (
+    IMPLEMENTED_KINDS,
     IMPLEMENTED_METHODS,
     IMPLEMENTED_SCORES,
     Spec,
@@ -115,7 +116,8 @@ def test_guide_example_loads_with_defaults_lines_and_paths(tmp_path: Path) -> No
 def test_minimal_spec_fills_every_default(tmp_path: Path) -> None:
     spec = load_spec(write(tmp_path, BASE))
     data = normalised_spec(spec)
-    assert data["score"] == {"ess": 1.0, "name": "bic"}
+    assert data["score"] == {"alpha_mu": None, "alpha_w": None, "ess": 1.0, "name": "bic",
+                             "prior_scale": None}
     assert data["search"]["method"] == "hill-climb"
     assert data["search"]["budget"] == {"max_evaluations": None, "max_seconds": 600.0,
                                         "max_steps": 10000}
@@ -141,7 +143,9 @@ def test_spec_is_frozen(tmp_path: Path) -> None:
 
 
 def test_implemented_lists() -> None:
-    assert IMPLEMENTED_SCORES == ("loglik", "aic", "bic", "bdeu", "k2")
+    assert IMPLEMENTED_SCORES == ("loglik", "aic", "bic", "bdeu", "k2", "gaussian-loglik",
+                                  "gaussian-bic", "bge")
+    assert IMPLEMENTED_KINDS == ("discrete", "continuous")
     assert IMPLEMENTED_METHODS == ("hill-climb", "first-ascent", "stochastic", "tabu", "order",
                                    "exact")
 
@@ -350,11 +354,8 @@ def test_not_available_in_this_version(tmp_path: Path) -> None:
                    "bootstrap: {replicates: 10}\nfit: {pseudo_count: 1.0}\n"
                    "evaluation: {holdout: 0.2}\n")
     problems = problems_of(write(tmp_path, text))
-    score = only(problems, "score.name")
-    assert "not available in this version of dagmill" in score.message
-    assert "loglik, aic, bic, bdeu, k2" in score.message
-    kind = only(problems, "dataset.columns.peak.kind")
-    assert kind.line == 5 and "available kinds: discrete" in kind.message
+    # continuous columns and the Gaussian scores are available now
+    assert not [p for p in problems if p.key in ("score.name", "dataset.columns.peak.kind")]
     for section, line in (("bootstrap", 8), ("fit", 9), ("evaluation", 10)):
         problem = only(problems, section)
         assert problem.line == line
