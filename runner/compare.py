@@ -221,7 +221,8 @@ def record_data_file(record: Mapping[str, Any]) -> Path:
 
 
 def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
-            data_path: str | Path | None = None) -> dict[str, Any]:
+            data_path: str | Path | None = None,
+            settings: Mapping[str, Any] | None = None) -> dict[str, Any]:
     """The score of ``record``'s graph under ``score_name`` on the record's data.
 
     The data is read the way the run read it (the spec's declared states, missing-value
@@ -242,10 +243,12 @@ def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
     if unknown:
         raise InputError(Problem(str(path), "the data lacks the graph's variables "
                                  + ", ".join(map(repr, unknown)), key="columns"))
-    # Continuous columns are cut at the record's own bin edges; BGe's prior is the
-    # record's when it was learned under bge, else the defaults.
+    # Continuous columns are cut at the record's own bin edges; BGe's prior comes from
+    # ``settings`` (the other run's score block), else the record's own when it was
+    # learned under the same score, else the defaults.
     own = _get(record, ("spec", "score")) or {}
-    score = {**(own if own.get("name") == score_name else {}), "name": score_name, "ess": ess}
+    chosen = settings if settings is not None else (own if own.get("name") == score_name else {})
+    score = {**chosen, "name": score_name, "ess": ess}
     stored = {n: c["binning"] for n, c in record["data"]["columns"].items()
               if isinstance(c.get("binning"), dict)}
     resolved = resolve_columns(dataset, spec_dataset.get("columns") or {}, score,

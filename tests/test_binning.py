@@ -276,3 +276,13 @@ def test_bge_keys_with_another_score_are_a_warning(tmp_path: Path,
     (tmp_path / "data.csv").write_text(CONTINUOUS)
     code, out = cli(["validate", "spec.yaml"], tmp_path, capsys)
     assert code == 0 and "score.alpha_mu" in out and "only applies to score 'bge'" in out
+
+
+def test_take_rows_keeps_the_float_matrix(tmp_path: Path) -> None:
+    """A resample (bootstrap) of continuous data carries its values along."""
+    path = tmp_path / "d.csv"
+    path.write_text("m,n\n" + "".join(f"{i * 0.5},{i % 3}\n" for i in range(80)))
+    data = load_dataset(path)
+    picked = data.take_rows(np.array([3, 3, 79]))
+    assert picked.values is not None and picked.values[0].tolist() == [1.5, 1.5, 39.5]
+    assert picked.kinds == data.kinds and picked.codes[1].tolist() == [0, 0, 1]
