@@ -119,6 +119,7 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
     states = list(dataset.states)
     codes = np.array(dataset.codes, copy=True) if dataset.values is not None else dataset.codes
     fingerprint: dict[str, list[float]] = {}
+    unbinned: list[str] = []
     for i, name in enumerate(dataset.names):
         reason = dataset.kind_reason(i)
         if dataset.kind(i) == "discrete":
@@ -129,13 +130,16 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
         bins = spec.get("bins")
         key = _column_key(name)
         if bins is None:
+            ways = ("declare bins for it ({key}: {{kind: continuous, bins: 4, binning: "
+                    "quantile}}), or drop the column from the data file, or use a Gaussian "
+                    "score (" + ", ".join(GAUSSIAN_SCORES) + ") if every column is continuous")
+            if unbinned:
+                ways = f"declare bins for it, or drop it (as for {unbinned[0]!r})"
+            unbinned.append(name)
             problems.append(Problem(
                 spec_file, f"column {name!r} of {data_file} is continuous "
-                f"({REASON_TEXT[reason]}), but score "
-                f"'{score_name}' needs discrete columns; declare bins for it ({key}: "
-                "{kind: continuous, bins: 4, binning: quantile}), or drop the column from the "
-                "data file, or use a Gaussian score (" + ", ".join(GAUSSIAN_SCORES)
-                + ") if every column is continuous", line=line_of(key), key=key, value=name))
+                f"({REASON_TEXT[reason]}), but score '{score_name}' needs discrete columns; "
+                + ways.format(key=key), line=line_of(key), key=key, value=name))
             continue
         method = spec.get("binning") or DEFAULT_BINNING
         x = dataset.values[i] if dataset.values is not None else np.zeros(0)

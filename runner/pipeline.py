@@ -103,6 +103,10 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
         raise InputError(problems + exc.problems) from None
     warnings.extend(dataset.warnings)
     problems += check_spec_against_columns(spec, dataset.names, data_file=display)
+    # Kinds against the score, unless the score or the column settings are broken (their
+    # defaults would give misleading problems).
+    if any((p.key or "").startswith(("score", "dataset.columns")) for p in problems):
+        raise InputError(problems)
     stored, stored_from = baseline_bins(bins_from, spec.name) if bins_from else ({}, "")
     normal = normalised_spec(spec)
     try:

@@ -144,7 +144,8 @@ class DatasetSpec(_Section):
     missing: Literal["error", "drop-rows"] = Field(
         "error", description="What an empty cell does: stop with an error, or drop its row.")
     max_states: Annotated[StrictInt, Field(ge=2)] = Field(
-        64, description="Most distinct values a discrete column may have.")
+        64, description="Most distinct values a discrete column may have; an undeclared "
+        "numeric column with more is continuous.")
     columns: dict[str, ColumnSpec] = Field(
         default_factory=dict, description="Optional per-column kind and state order.")
 

@@ -9,6 +9,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from runner.binning import bin_edges, bin_labels, cut, cut_points, discretise
 from runner.cli import main
@@ -56,6 +58,23 @@ def test_tied_edges_give_fewer_bins() -> None:
     assert np.bincount(binned.codes).tolist() == [75, 25]
     with pytest.raises(ValueError):
         bin_edges(x, 1)
+
+
+@settings(max_examples=60, deadline=None)
+@given(values=st.lists(st.floats(-1e6, 1e6, allow_nan=False), min_size=1, max_size=200),
+       bins=st.integers(2, 12), method=st.sampled_from(["quantile", "equal-width"]))
+def test_bins_are_ordered_and_cover_every_value(values: list[float], bins: int,
+                                                method: str) -> None:
+    x = np.array(values)
+    binned = discretise(x, bins, method)
+    assert len(binned.edges) == bins + 1 and list(binned.edges) == sorted(binned.edges)
+    assert 1 <= len(binned.labels) <= bins and len(set(binned.labels)) == len(binned.labels)
+    assert binned.codes.min() >= 0 and binned.codes.max() < len(binned.labels)
+    order = np.argsort(x, kind="stable")
+    assert (np.diff(binned.codes[order]) >= 0).all()  # larger values, later bins
+    assert binned.below == binned.above == 0  # the edges span their own data
+    # cut again at the stored edges: the same codes
+    assert np.array_equal(discretise(x, bins, method, edges=binned.edges).codes, binned.codes)
 
 
 # --------------------------------------------------------------------------- kinds
