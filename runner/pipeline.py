@@ -107,8 +107,10 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
     # defaults would give misleading problems).
     if any((p.key or "").startswith(("score", "dataset.columns")) for p in problems):
         raise InputError(problems)
-    stored, stored_from = baseline_bins(bins_from, spec.name) if bins_from else ({}, "")
     normal = normalised_spec(spec)
+    binned = any(c.get("bins") for c in normal["dataset"]["columns"].values())
+    stored, stored_from = (baseline_bins(bins_from, spec.name) if bins_from and binned
+                           else ({}, ""))
     try:
         resolved = resolve_columns(
             dataset, normal["dataset"]["columns"], normal["score"], spec_file=str(spec_path),

@@ -189,6 +189,8 @@ def test_a_new_drop_is_cut_at_the_stored_edges(tmp_path: Path,
     stored = checked["data"]["columns"]["temp"]["binning"]
     assert stored["edges"] == temp["binning"]["edges"]
     assert stored["source"] == f"baseline run {first}"
+    code, out = cli(["show", report["run_id"]], tmp_path, capsys)
+    assert code == 0 and f"4 quantile bins, edges baseline run {first}" in out
     assert stored["above_range"] > 0  # the hotter drop leaves the stored range: end bin
     new_x = np.loadtxt(tmp_path / "new.csv", delimiter=",", skiprows=1, usecols=0)
     assert stored["above_range"] == int((new_x > temp["binning"]["edges"][-1]).sum())
