@@ -105,7 +105,8 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
     problems += check_spec_against_columns(spec, dataset.names, data_file=display)
     # Kinds against the score, unless the score or the column settings are broken (their
     # defaults would give misleading problems).
-    if any((p.key or "").startswith(("score", "dataset.columns")) for p in problems):
+    if any((p.key or "").startswith(("score", "dataset.columns")) and p.severity == "error"
+           for p in problems):
         raise InputError(problems)
     normal = normalised_spec(spec)
     binned = any(c.get("bins") for c in normal["dataset"]["columns"].values())

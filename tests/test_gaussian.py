@@ -385,3 +385,24 @@ def test_rescoring_a_gaussian_run_under_bge_uses_the_other_runs_prior(tmp_path: 
     assert again["value"] == pytest.approx(bge["score"]["value"], rel=1e-12)
     assert rescore(bge, "gaussian-bic")["value"] == pytest.approx(bic["score"]["value"],
                                                                   rel=1e-12)
+
+
+def test_statistics_are_computed_once_then_families_use_submatrices(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    """The scatter matrix is (N - 1) times numpy.cov (reference library); after it is made,
+    no family score touches the rows again."""
+    import runner.scores.gaussian as gaussian
+
+    values = random_data(2, n_vars=6, rows=400)
+    stats = sufficient_statistics(values)
+    assert np.allclose(stats.scatter, np.cov(values) * 399, rtol=1e-12, atol=1e-9)
+    assert np.array_equal(stats.scatter, stats.scatter.T)
+    scorer = build_gaussian_scorer("bge", values)
+
+    def no_second_pass(_: np.ndarray) -> None:
+        raise AssertionError("the rows were read again")
+
+    monkeypatch.setattr(gaussian, "sufficient_statistics", no_second_pass)
+    dag = random_dag(6, np.random.default_rng(0), density=0.5)
+    assert math.isfinite(scorer.total(dag))
+    assert scorer.evaluations == 6
