@@ -39,13 +39,17 @@ def learn_unit(seed: int | None, prepared: Prepared) -> _Learned:
 
 def run_specs(specs: Sequence[str | Path], results: Path, engine: Engine,
               data_path: str | Path | None = None, seed: int | None = None,
-              reporter: Reporter = SILENT) -> list[RunResult]:
-    """Prepare every spec, learn them on ``engine``, store them in the given order."""
+              reporter: Reporter = SILENT, reuse_bins: bool | None = None) -> list[RunResult]:
+    """Prepare every spec, learn them on ``engine``, store them in the given order.
+
+    ``reuse_bins`` (default: when ``data_path`` names a new data drop) cuts continuous
+    columns at the bin edges of each spec's baseline in ``results``."""
+    reuse = data_path is not None if reuse_bins is None else reuse_bins
     problems: list[Problem] = []
     prepared: list[Prepared] = []
     for spec in specs:
         try:
-            prepared.append(prepare(spec, data_path))
+            prepared.append(prepare(spec, data_path, bins_from=results if reuse else None))
         except InputError as exc:
             problems.extend(exc.problems)
     if problems:

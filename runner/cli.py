@@ -208,9 +208,9 @@ def _cmd_compare(args: argparse.Namespace) -> int:
         try:
             rescored = {
                 "a_under_b": compare.rescore(a, b["score"]["name"], b["score"].get("ess") or 1.0,
-                                             args.data),
+                                             args.data, (b.get("spec") or {}).get("score")),
                 "b_under_a": compare.rescore(b, a["score"]["name"], a["score"].get("ess") or 1.0,
-                                             args.data),
+                                             args.data, (a.get("spec") or {}).get("score")),
             }
         except InputError as exc:
             reason = "; ".join(p.format() for p in exc.problems)
@@ -249,6 +249,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
     choice = choose_engine(args.engine, args.workers)
     with open_engine(choice) as engine:
         results = run_specs(args.specs, root, engine, data_path=args.data,
+                            reuse_bins=True,
                             reporter=Reporter(args.quiet))
     for result in results:
         if not args.json:

@@ -29,7 +29,7 @@ from runner.graph import (
     same_equivalence_class,
     structural_hamming_distance,
 )
-from runner.scores import build_scorer
+from runner.kinds import make_scorer, resolve_columns
 
 #: The inputs shown side by side by ``compare``, as (label, path into the record).
 INPUT_FIELDS: tuple[tuple[str, tuple[str, ...]], ...] = (
@@ -223,7 +223,8 @@ def record_data_file(record: Mapping[str, Any]) -> Path:
 
 
 def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
-            data_path: str | Path | None = None) -> dict[str, Any]:
+            data_path: str | Path | None = None,
+            settings: Mapping[str, Any] | None = None) -> dict[str, Any]:
     """The score of ``record``'s graph under ``score_name`` on the record's data.
 
     The data is read the way the run read it (the spec's declared states, missing-value
@@ -232,8 +233,8 @@ def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
     """
     explicit = data_path is not None
     path = Path(data_path) if explicit else record_data_file(record)
-    dataset = load_dataset(path, display_path=str(path),
-                           **loader_settings(_get(record, ("spec", "dataset")) or {}))
+    spec_dataset = _get(record, ("spec", "dataset")) or {}
+    dataset = load_dataset(path, display_path=str(path), **loader_settings(spec_dataset))
     if not explicit and dataset.sha256 != record["data"]["sha256"]:
         raise InputError(Problem(str(path), (
             f"the data file's sha256 is {dataset.sha256}, but run {record['run_id']} was "
@@ -244,7 +245,19 @@ def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
     if unknown:
         raise InputError(Problem(str(path), "the data lacks the graph's variables "
                                  + ", ".join(map(repr, unknown)), key="columns"))
-    scorer = build_scorer(score_name, dataset.codes, dataset.arities, ess=ess)
+    # Continuous columns are cut at the record's own bin edges; BGe's prior comes from
+    # ``settings`` (the other run's score block), else the record's own when it was
+    # learned under the same score, else the defaults.
+    own = _get(record, ("spec", "score")) or {}
+    chosen = settings if settings is not None else (own if own.get("name") == score_name else {})
+    score = {**chosen, "name": score_name, "ess": ess}
+    stored = {n: c["binning"] for n, c in record["data"]["columns"].items()
+              if isinstance(c.get("binning"), dict)}
+    resolved = resolve_columns(dataset, spec_dataset.get("columns") or {}, score,
+                               spec_file=str(record.get("spec_path") or "<record>"),
+                               data_file=str(path), stored_bins=stored,
+                               stored_from=f"run {record['run_id']}")
+    scorer = make_scorer(score, resolved.dataset)
     parents = parents_from_edges(names, record["edges"])
     total = scorer.total(parents)
     return {"score": score_name, "ess": ess if score_name == "bdeu" else None, "value": total,

@@ -17,6 +17,13 @@ Reading rules (the same for every command):
   not come from a file (:func:`encode_frame`) name 1-based rows instead.
 * Declared states for a name that is not a column are ignored here: the spec check
   reports those, with the spec's line.
+* Column kinds: a column is *continuous* when declared so (``kind: continuous``), or when
+  it is not declared and all its values are numbers with more distinct values than
+  ``max_states`` (reason ``inferred-numeric-many-values``); every other column is
+  discrete (reasons ``declared``, ``inferred-text``, ``inferred-numeric-few-values``).
+  A continuous column's values must be decimal numbers (``1.5``, ``-2e3``; no ``inf``);
+  they are kept as float64 in :attr:`Dataset.values` and its codes are zeros with no
+  states, until a score decides how to use it (binning: :mod:`runner.binning`).
 
 Every problem found is collected and raised together as an :class:`InputError`.
 """
@@ -26,6 +33,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import math
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -63,6 +71,11 @@ class Dataset:
     ``states[i]``. The array is C-contiguous (so ``codes[i]`` is one contiguous column)
     and read-only; its dtype is ``uint8`` when every column has at most 256 states and
     ``uint16`` otherwise. Datasets compare by identity (they hold an array).
+
+    ``kinds[i]`` is ``"discrete"`` or ``"continuous"`` and ``kind_reasons[i]`` why (empty
+    tuples: every column discrete). ``values`` is None unless a column is continuous;
+    then it is a read-only float64 array of shape (n_vars, n_rows) holding the numbers of
+    the continuous columns (rows of discrete columns are NaN).
     """
 
     path: str
@@ -72,6 +85,16 @@ class Dataset:
     codes: np.ndarray
     dropped_rows: int = 0
     warnings: tuple[Problem, ...] = ()
+    kinds: tuple[str, ...] = ()
+    kind_reasons: tuple[str, ...] = ()
+    values: np.ndarray | None = None
+
+    def kind(self, i: int) -> str:
+        """Kind of column ``i``: "discrete" or "continuous"."""
+        return self.kinds[i] if self.kinds else "discrete"
+
+    def kind_reason(self, i: int) -> str:
+        return self.kind_reasons[i] if self.kind_reasons else "inferred-text"
 
     @property
     def rows(self) -> int:
@@ -107,10 +130,15 @@ class Dataset:
             raise ValueError("rows must be a 1-D array of integer positions or a boolean mask")
         if selected.size and (selected.min() < 0 or selected.max() >= self.rows):
             raise ValueError(f"row positions must lie in [0, {self.rows})")
-        codes = np.ascontiguousarray(self.codes[:, selected.astype(np.intp, copy=False)])
+        positions = selected.astype(np.intp, copy=False)
+        codes = np.ascontiguousarray(self.codes[:, positions])
         codes.flags.writeable = False
+        values = None
+        if self.values is not None:
+            values = np.ascontiguousarray(self.values[:, positions])
+            values.flags.writeable = False
         return Dataset(self.path, self.sha256, self.names, self.states, codes,
-                       self.dropped_rows, self.warnings)
+                       self.dropped_rows, self.warnings, self.kinds, self.kind_reasons, values)
 
 
 # --------------------------------------------------------------------------- public functions
@@ -127,14 +155,15 @@ def file_sha256(path: Path) -> str:
 
 def loader_settings(dataset: Mapping[str, Any]) -> dict[str, Any]:
     """``load_dataset`` keywords from a spec's ``dataset`` block as plain data (a
-    normalised spec, or the copy inside a run record): missing rule, state limit and
-    the declared state orders."""
+    normalised spec, or the copy inside a run record): missing rule, state limit,
+    the declared state orders and the declared kinds."""
     columns = dataset.get("columns") or {}
     return {
         "missing": dataset.get("missing", "error"),
         "max_states": dataset.get("max_states", 64),
         "declared_states": {n: list(c["states"]) for n, c in columns.items()
                             if c.get("states")},
+        "declared_kinds": {n: c.get("kind") or "discrete" for n, c in columns.items()},
     }
 
 
@@ -144,6 +173,7 @@ def load_dataset(
     missing: str = "error",
     declared_states: Mapping[str, Sequence[str]] | None = None,
     max_states: int = 64,
+    declared_kinds: Mapping[str, str] | None = None,
     expected_sha256: str | None = None,
     display_path: str | None = None,
     key_prefix: str = "dataset",
@@ -181,13 +211,14 @@ def load_dataset(
     encoded = _encode_columns(
         names, table.columns, file=file, locate=table.locate, unit="line",
         declared=declared_states, max_states=max_states, missing=missing,
-        key_prefix=key_prefix)
+        key_prefix=key_prefix, kinds=declared_kinds)
     problems.extend(encoded.problems)
     if any(p.severity == "error" for p in problems):
         raise InputError(problems)
     warnings = tuple(p for p in problems if p.severity != "error") + encoded.warnings
     return Dataset(str(path), sha, tuple(names), encoded.states, encoded.codes,
-                   encoded.dropped_rows, warnings)
+                   encoded.dropped_rows, warnings, encoded.kinds, encoded.kind_reasons,
+                   encoded.values)
 
 
 def encode_frame(
@@ -198,6 +229,7 @@ def encode_frame(
     declared_states: Mapping[str, Sequence[str]] | None = None,
     max_states: int = 64,
     missing: str = "error",
+    declared_kinds: Mapping[str, str] | None = None,
 ) -> Dataset:
     """Check and encode an in-memory table by the same rules as :func:`load_dataset`.
 
@@ -219,12 +251,13 @@ def encode_frame(
     encoded = _encode_columns(
         names, columns, file=path, locate=lambda rows: rows + 1, unit="row",
         declared=declared_states, max_states=max_states, missing=missing,
-        key_prefix="dataset")
+        key_prefix="dataset", kinds=declared_kinds)
     problems.extend(encoded.problems)
     if any(p.severity == "error" for p in problems):
         raise InputError(problems)
     return Dataset(path, sha256, tuple(names), encoded.states, encoded.codes,
-                   encoded.dropped_rows, encoded.warnings)
+                   encoded.dropped_rows, encoded.warnings, encoded.kinds, encoded.kind_reasons,
+                   encoded.values)
 
 
 # --------------------------------------------------------------------------- reading the file
@@ -427,6 +460,9 @@ class _Encoded:
     dropped_rows: int
     warnings: tuple[Problem, ...]
     problems: list[Problem]
+    kinds: tuple[str, ...] = ()
+    kind_reasons: tuple[str, ...] = ()
+    values: np.ndarray | None = None
 
 
 @dataclass
@@ -464,10 +500,12 @@ def _encode_columns(
     max_states: int,
     missing: str,
     key_prefix: str,
+    kinds: Mapping[str, str] | None = None,
 ) -> _Encoded:
     problems: list[Problem] = []
     warnings: list[Problem] = []
     declared = declared or {}
+    kinds = kinds or {}
     parsed: list[_Column] = []
     for name, values in zip(names, columns, strict=True):
         states = declared.get(name)
@@ -512,11 +550,42 @@ def _encode_columns(
 
     all_states: list[tuple[str, ...]] = []
     all_codes: list[np.ndarray] = []
+    column_kinds: list[str] = []
+    reasons: list[str] = []
+    numbers: dict[int, np.ndarray] = {}
     for name, col in zip(names, parsed, strict=True):
         raw = col.raw_codes if kept_rows is None else col.raw_codes[kept_rows]
         present = np.bincount(raw, minlength=len(col.labels)) > 0
         seen = sorted({label for label, p in zip(col.labels, present, strict=True)
                        if p and label is not None})
+        declared_kind = kinds.get(name)
+        many = col.declared is None and len(seen) > max_states
+        if declared_kind == "continuous" or (declared_kind is None and many):
+            parsed_numbers = _numbers(col.labels)
+            if declared_kind == "continuous" or not np.isnan(parsed_numbers[~_missing(col)]).any():
+                bad_problem = _not_numbers(name, col, raw, parsed_numbers, file, locate,
+                                           kept_rows, unit)
+                if bad_problem is not None:
+                    problems.append(bad_problem)
+                    continue
+                numbers[len(all_codes)] = parsed_numbers[raw]
+                column_kinds.append("continuous")
+                reasons.append("declared" if declared_kind else "inferred-numeric-many-values")
+                if len(seen) == 1:
+                    warnings.append(Problem(
+                        file, f"column {name!r} has the same value {seen[0]!r} in every row; "
+                        "it is kept, but it can neither depend on nor explain another column",
+                        key=name, severity="warning"))
+                all_states.append(())
+                all_codes.append(np.zeros(len(raw), dtype=np.uint8))
+                continue
+        column_kinds.append("discrete")
+        if col.declared is not None or declared_kind is not None:
+            reasons.append("declared")
+        elif seen and not np.isnan(_numbers(seen)).any():
+            reasons.append("inferred-numeric-few-values")
+        else:
+            reasons.append("inferred-text")
         if col.declared is None:
             if len(seen) > max_states:
                 problems.append(Problem(
@@ -566,7 +635,56 @@ def _encode_columns(
     for i, codes in enumerate(all_codes):
         matrix[i] = codes
     matrix.flags.writeable = False
-    return _Encoded(tuple(all_states), matrix, dropped, tuple(warnings), problems)
+    if not numbers:
+        return _Encoded(tuple(all_states), matrix, dropped, tuple(warnings), problems,
+                        tuple(column_kinds), tuple(reasons))
+    values = np.full(matrix.shape, np.nan, dtype=np.float64)
+    for i, column in numbers.items():
+        values[i] = column
+    values.flags.writeable = False
+    return _Encoded(tuple(all_states), matrix, dropped, tuple(warnings), problems,
+                    tuple(column_kinds), tuple(reasons), values)
+
+
+def _number(label: str) -> float:
+    """``label`` as a finite decimal number, else NaN (no ``inf``, no ``1_000``)."""
+    try:
+        value = float(label)
+    except ValueError:
+        return math.nan
+    return value if math.isfinite(value) and "_" not in label else math.nan
+
+
+def _numbers(labels: Sequence[str | None]) -> np.ndarray:
+    """Each label as a number (NaN: missing or not a number)."""
+    return np.array([math.nan if label is None else _number(label) for label in labels],
+                    dtype=np.float64)
+
+
+def _missing(col: _Column) -> np.ndarray:
+    return np.array([label is None for label in col.labels], dtype=bool)
+
+
+def _not_numbers(
+    name: str, col: _Column, raw: np.ndarray, numbers: np.ndarray, file: str,
+    locate: Callable[[np.ndarray], np.ndarray], kept_rows: np.ndarray | None, unit: str,
+) -> Problem | None:
+    """A problem naming the first values of a continuous column that are not numbers."""
+    bad_label = np.isnan(numbers) & ~_missing(col)
+    bad = bad_label[raw]
+    if not bad.any():
+        return None
+    rows = np.flatnonzero(bad)
+    original = rows if kept_rows is None else kept_rows[rows]
+    where = locate(original[:_SHOWN_LINES])
+    example = col.labels[int(raw[rows[0]])]
+    distinct = int(np.unique(raw[rows]).size)
+    more = f" ({_plural(distinct, 'distinct value')} in {_plural(rows.size, 'row')})" \
+        if rows.size > 1 else ""
+    return Problem(
+        file, f"column {name!r} is continuous but has text that is not a number: {example!r} "
+        f"at {_locations(unit, where[:1])}{more}; fix the value, or declare the column "
+        f"kind: discrete", line=int(where[0]) if unit == "line" else None, key=name)
 
 
 def _declared_problems(name: str, states: tuple[str, ...], file: str,

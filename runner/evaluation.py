@@ -10,6 +10,11 @@ under tables fitted on the learning rows with the run's pseudo-count; the empty 
 (every variable on its own) is scored the same way beside it. Held-out cells whose state
 or parent configuration the learning rows lack get their probability from the
 pseudo-count alone; they are counted in the record.
+
+Under a Gaussian score the held-out fit is the mean log density (natural log) per
+held-out row under the linear-Gaussian families fitted on the learning rows, the empty
+graph's being each column's own normal with the learning rows' mean and ML variance.
+A density has no unseen cells; those counts are zero.
 """
 
 from __future__ import annotations
@@ -19,7 +24,8 @@ from typing import Any
 
 import numpy as np
 
-from runner.fit import DiscreteFamily, fit_discrete, log_likelihood_rows
+from runner.fit import DiscreteFamily, fit_discrete, fit_gaussian, log_likelihood_rows
+from runner.scores.gaussian import LinearGaussianFamily
 
 
 def split_rows(n_rows: int, holdout: float, seed: int) -> tuple[np.ndarray, np.ndarray]:
@@ -60,18 +66,38 @@ def held_out_fit(learn_codes: np.ndarray, held_codes: np.ndarray, arities: np.nd
     }
 
 
-def learning_rows(codes: np.ndarray, evaluation: Any) -> tuple[np.ndarray, np.ndarray | None,
-                                                                dict[str, Any] | None]:
-    """The codes to learn from, the held-out codes (None without ``evaluation``) and the
-    record's description of the split (None without it)."""
-    if evaluation is None:
-        return codes, None, None
-    learn, held = split_rows(codes.shape[1], evaluation.holdout, evaluation.seed)
-    split = {"holdout": evaluation.holdout, "seed": evaluation.seed,
-             "rows_learned": int(learn.size), "rows_held_out": int(held.size),
-             "rule": "seeded permutation (numpy SeedSequence(seed)); the first "
-                     "round(holdout * rows) rows of it are held out"}
-    return (np.ascontiguousarray(codes[:, learn]), np.ascontiguousarray(codes[:, held]), split)
+def gaussian_log_density_rows(families: Sequence[LinearGaussianFamily],
+                              parent_sets: Sequence[Sequence[int]],
+                              values: np.ndarray) -> np.ndarray:
+    """Per row, the sum over variables of ln N(x_c; intercept + beta . x_parents, var)."""
+    total = np.zeros(values.shape[1])
+    for child, (fam, parents) in enumerate(zip(families, parent_sets, strict=True)):
+        mean = np.full(values.shape[1], fam.intercept)
+        for p, b in zip(parents, fam.coefficients, strict=True):
+            mean += b * values[p]
+        resid = values[child] - mean
+        total += -0.5 * (np.log(2.0 * np.pi * fam.variance) + resid * resid / fam.variance)
+    return total
+
+
+def gaussian_held_out_fit(learn_values: np.ndarray, held_values: np.ndarray,
+                          families: Sequence[LinearGaussianFamily],
+                          parent_sets: Sequence[Sequence[int]]) -> dict[str, Any]:
+    """The record's ``evaluation`` blocks for a linear-Gaussian network."""
+    rows = held_values.shape[1]
+    empty_sets: list[tuple[int, ...]] = [() for _ in range(held_values.shape[0])]
+    learned = float(gaussian_log_density_rows(families, parent_sets, held_values).sum())
+    empty = float(gaussian_log_density_rows(fit_gaussian(learn_values, empty_sets),
+                                            empty_sets, held_values).sum())
+    per_row, empty_per_row = (learned / rows, empty / rows) if rows else (0.0, 0.0)
+    return {
+        "measure": "log density (linear-Gaussian)",
+        "log_likelihood": {"learned": learned, "empty": empty, "learned_per_row": per_row,
+                           "empty_per_row": empty_per_row,
+                           "difference_per_row": per_row - empty_per_row},
+        "unseen": {"configurations": 0, "states": 0, "empty_graph_states": 0,
+                   "by_variable": {}},
+    }
 
 
 # --------------------------------------------------------------------------- records
@@ -91,12 +117,16 @@ def held_out_lines(record: Mapping[str, Any]) -> list[str]:
     if ev is None:
         return []
     ll, unseen = ev["log_likelihood"], ev["unseen"]
-    return [
+    lines = [
         f"held out   {ev['rows_held_out']} rows (holdout {ev['holdout']:g}, seed {ev['seed']}); "
         f"learned on {ev['rows_learned']}",
         f"  log-likelihood per held-out row: learned {ll['learned_per_row']:.6f}  "
         f"empty graph {ll['empty_per_row']:.6f}  difference "
         f"{ll['difference_per_row']:+.6f}",
+    ]
+    if "measure" in ev:  # a density: no unseen cells
+        return [*lines[:-1], lines[-1].replace("log-likelihood", "log density")]
+    return [*lines,
         f"  unseen in learning: {unseen['configurations']} parent configurations, "
         f"{unseen['states']} states (cells of held-out rows; from the pseudo-count)",
     ]

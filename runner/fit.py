@@ -15,8 +15,11 @@ The functions are pure: they take the integer codes (variables x rows), the arit
 the parent sets, and return plain data. Counting uses the mixed-radix configuration
 codes of :mod:`runner.scores.counts`.
 
-Gaussian variables get coefficients, intercept and residual variance in
-:func:`gaussian_family` once continuous columns exist.
+Continuous variables under a Gaussian score (linear-Gaussian networks): each child's
+least-squares intercept and coefficients on its parents and its maximum-likelihood
+residual variance RSS / N, from the learning rows' means and scatter matrix
+(:func:`runner.scores.gaussian.linear_gaussian_parameters`); the child given its parents
+is then N(intercept + sum_p beta_p x_p, variance).
 """
 
 from __future__ import annotations
@@ -27,7 +30,13 @@ from typing import Any
 
 import numpy as np
 
+from runner.data import Dataset
 from runner.scores.counts import COMPACT_ABOVE, configuration_codes
+from runner.scores.gaussian import (
+    LinearGaussianFamily,
+    linear_gaussian_parameters,
+    sufficient_statistics,
+)
 
 MODEL_FORMAT = "dagmill-model"
 MODEL_VERSION = 1
@@ -95,10 +104,44 @@ def fit_discrete(codes: np.ndarray, arities: np.ndarray,
     return [discrete_family(codes, arities, c, tuple(ps)) for c, ps in enumerate(parent_sets)]
 
 
-def gaussian_family(codes: np.ndarray, child: int, parents: Sequence[int]) -> dict[str, Any]:
-    """Slot for a continuous child: least-squares coefficients on its parents, intercept
-    and residual variance. Continuous columns are not available in this version."""
-    raise NotImplementedError("Gaussian tables come with continuous columns")
+def fit_gaussian(values: np.ndarray,
+                 parent_sets: Sequence[Sequence[int]]) -> list[LinearGaussianFamily]:
+    """Linear-Gaussian parameters of every family on ``values`` (variables x rows)."""
+    stats = sufficient_statistics(values)
+    return [linear_gaussian_parameters(stats, c, tuple(ps)) for c, ps in enumerate(parent_sets)]
+
+
+def gaussian_model_document(families: Sequence[LinearGaussianFamily],
+                            parent_sets: Sequence[Sequence[int]], names: Sequence[str],
+                            rows: int, data_sha256: str, graph_hash: str) -> dict[str, Any]:
+    """The ``model.json`` document of a linear-Gaussian network."""
+    variables = {
+        names[c]: {"kind": "continuous", "parents": [names[p] for p in ps],
+                   "intercept": fam.intercept,
+                   "coefficients": {names[p]: b for p, b in zip(ps, fam.coefficients,
+                                                                 strict=True)},
+                   "residual_variance": fam.variance}
+        for c, (fam, ps) in enumerate(zip(families, parent_sets, strict=True))
+    }
+    return {"format": MODEL_FORMAT, "version": MODEL_VERSION,
+            "estimator": "least-squares", "pseudo_count": None, "rows": rows,
+            "data_sha256": data_sha256, "graph_sha256": graph_hash, "variables": variables}
+
+
+def fit_model(dataset: Dataset, gaussian: bool, parent_sets: Sequence[Sequence[int]],
+              pseudo_count: float, graph_hash: str
+              ) -> tuple[dict[str, Any], list[DiscreteFamily] | list[LinearGaussianFamily]]:
+    """The ``model.json`` document of a learned graph on ``dataset`` (the learning rows)
+    and the fitted families: linear-Gaussian under a Gaussian score, else tables."""
+    if gaussian:
+        if dataset.values is None:
+            raise ValueError("a Gaussian model needs continuous columns")
+        gauss = fit_gaussian(dataset.values, parent_sets)
+        return gaussian_model_document(gauss, parent_sets, dataset.names, dataset.rows,
+                                       dataset.sha256, graph_hash), gauss
+    tables = fit_discrete(dataset.codes, dataset.arities, parent_sets)
+    return model_document(tables, dataset.names, dataset.states, pseudo_count, dataset.rows,
+                          dataset.sha256, graph_hash), tables
 
 
 def configuration_index(fam: DiscreteFamily, codes: np.ndarray) -> np.ndarray:

@@ -22,6 +22,21 @@ def render_table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
     return "\n".join(lines)
 
 
+def continuous_lines(columns: dict[str, Any]) -> list[str]:
+    """The continuous columns of a record: how each was used (bins and their source)."""
+    lines = []
+    for name in sorted(n for n, c in columns.items() if c.get("kind") == "continuous"):
+        binning = columns[name].get("binning")
+        if binning is None:
+            lines.append(f"  {name:<20} continuous ({columns[name].get('kind_reason', '?')})")
+            continue
+        outside = binning.get("below_range", 0) + binning.get("above_range", 0)
+        lines.append(f"  {name:<20} {len(columns[name]['states'])} {binning['method']} bins, "
+                     f"edges {binning['source']}"
+                     + (f", {outside} value(s) outside their range" if outside else ""))
+    return ["continuous columns", *lines] if lines else []
+
+
 def summary_lines(record: dict[str, Any], folder: Path | None = None) -> list[str]:
     """A run's summary: inputs and hashes, score, search, edges, timings, the caution."""
     data, score, search = record["data"], record["score"], record["search"]
@@ -44,6 +59,7 @@ def summary_lines(record: dict[str, Any], folder: Path | None = None) -> list[st
     ]
     if folder is not None:
         lines.append(f"folder     {folder}")
+    lines += continuous_lines(data.get("columns", {}))
     edges = record["edges"]
     lines.append(f"edges      {len(edges)}")
     families = score.get("families", {})
@@ -55,8 +71,10 @@ def summary_lines(record: dict[str, Any], folder: Path | None = None) -> list[st
     lines += held_out_lines(record)
     model = record.get("model")
     if model:
-        lines.append(f"model      {model['file']}  {model['estimator']}, pseudo-count "
-                     f"{model['pseudo_count']:g}  sha256 {model['sha256']}")
+        prior = ("" if model.get("pseudo_count") is None
+                 else f", pseudo-count {model['pseudo_count']:g}")
+        lines.append(f"model      {model['file']}  {model['estimator']}{prior}  "
+                     f"sha256 {model['sha256']}")
     lines += confidence_lines(record)
     lines.append("")
     lines.append("caution: " + record.get("caution", ""))

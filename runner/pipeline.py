@@ -24,11 +24,12 @@ from runner.constraints import Constraints, build_constraints
 from runner.data import Dataset, load_dataset, loader_settings
 from runner.engines import Engine, InProcess
 from runner.errors import InputError, Problem
-from runner.evaluation import held_out_fit, learning_rows, split_rows
-from runner.fit import DEFAULT_PSEUDO_COUNT, fit_discrete, model_document
+from runner.evaluation import gaussian_held_out_fit, held_out_fit, split_rows
+from runner.fit import DEFAULT_PSEUDO_COUNT, fit_model
 from runner.graph import edges_from_parents, graph_sha256
+from runner.kinds import is_gaussian, make_scorer, resolve_columns, score_record
 from runner.progress import SILENT, Progress, Reporter
-from runner.scores import SCORE_EQUIVALENT, FamilyScorer, build_scorer
+from runner.scores import SCORE_EQUIVALENT, FamilyScorer
 from runner.search import (
     DEFAULT_KICK,
     DEFAULT_PATIENCE,
@@ -44,7 +45,7 @@ from runner.search.exact import exact_search
 from runner.search.order import order_search
 from runner.search.parent_sets import SearchRefused
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
-from runner.store import find_twin, model_reference, trace_csv, write_run
+from runner.store import find_twin, model_reference, read_baseline, trace_csv, write_run
 
 CAUTION = (
     "A learned structure is statistical association under assumptions (no hidden common "
@@ -63,13 +64,28 @@ class Prepared:
     data_display: str
     spec_display: str
     warnings: list[Problem] = field(default_factory=list)
+    columns: dict[str, dict[str, Any]] | None = None  # the record's data.columns
+    bins_fingerprint: str | None = None  # the bin cut points used, for the input hash
 
 
-def prepare(spec_path: str | Path, data_path: str | Path | None = None) -> Prepared:
+def baseline_bins(results: Path, spec_name: str) -> tuple[dict[str, dict[str, Any]], str]:
+    """The bins stored in a spec's baseline (column -> binning block) and its run id."""
+    baseline = read_baseline(results, spec_name)
+    if baseline is None:
+        return {}, ""
+    columns = (baseline.get("data") or {}).get("columns") or {}
+    bins = {n: c["binning"] for n, c in columns.items() if isinstance(c.get("binning"), dict)}
+    return bins, f"baseline run {baseline['run_id']}"
+
+
+def prepare(spec_path: str | Path, data_path: str | Path | None = None,
+            bins_from: Path | None = None) -> Prepared:
     """Load and check a spec and its data; raise InputError with every problem found.
 
     When the spec itself has problems but its ``dataset`` block is sound, the data and
-    the variable names are still checked, so one call reports everything.
+    the variable names are still checked, so one call reports everything. With
+    ``bins_from`` (a results folder) continuous columns are cut at the bin edges stored
+    in the spec's baseline there, when it has them for the same settings.
     """
     problems: list[Problem] = []
     try:
@@ -92,13 +108,32 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None) -> Prepa
         raise InputError(problems + exc.problems) from None
     warnings.extend(dataset.warnings)
     problems += check_spec_against_columns(spec, dataset.names, data_file=display)
+    # Kinds against the score, unless the score or the column settings are broken (their
+    # defaults would give misleading problems).
+    if any((p.key or "").startswith(("score", "dataset.columns")) and p.severity == "error"
+           for p in problems):
+        raise InputError(problems)
+    normal = normalised_spec(spec)
+    binned = any(c.get("bins") for c in normal["dataset"]["columns"].values())
+    stored, stored_from = (baseline_bins(bins_from, spec.name) if bins_from and binned
+                           else ({}, ""))
+    try:
+        resolved = resolve_columns(
+            dataset, normal["dataset"]["columns"], normal["score"], spec_file=str(spec_path),
+            data_file=display, line_of=spec.line_of, stored_bins=stored,
+            stored_from=stored_from)
+    except InputError as exc:
+        raise InputError(problems + exc.problems) from None
     if problems:
         raise InputError(problems)
+    dataset = resolved.dataset
+    warnings.extend(resolved.warnings)
     constraints = build_constraints(
         dataset.names, spec.tiers, spec.within_tier, spec.forbidden, spec.required,
         spec.parent_cap,
     )
-    return Prepared(spec, dataset, constraints, display, str(spec_path), warnings)
+    return Prepared(spec, dataset, constraints, display, str(spec_path), warnings,
+                    resolved.columns, resolved.bins_fingerprint)
 
 
 def validate(spec_path: str | Path) -> tuple[list[Problem], list[Problem]]:
@@ -131,9 +166,12 @@ def total_order(spec: Spec, names: tuple[str, ...]) -> list[int]:
     return [index[n] for n in listed]
 
 
-def input_sha256(spec_hash: str, data_hash: str, version: str) -> str:
-    """The hash that names a run's inputs: spec hash, data hash and code version."""
-    return hashlib.sha256(f"{spec_hash}\n{data_hash}\n{version}".encode()).hexdigest()
+def input_sha256(spec_hash: str, data_hash: str, version: str, bins: str | None = None) -> str:
+    """The hash that names a run's inputs: spec hash, data hash and code version, and the
+    bin cut points of continuous columns when there are any (stored edges reused on a
+    new data drop are an input of their own)."""
+    text = f"{spec_hash}\n{data_hash}\n{version}" + (f"\n{bins}" if bins else "")
+    return hashlib.sha256(text.encode()).hexdigest()
 
 
 def environment() -> dict[str, str]:
@@ -218,7 +256,7 @@ def search_on(prepared: Prepared, dataset: Dataset,
     """The spec's score and search on ``dataset`` (the prepared columns, other rows: a
     bootstrap replicate); the learned parent sets and whether the search converged."""
     spec = prepared.spec
-    scorer = build_scorer(spec.score.name, dataset.codes, dataset.arities, ess=spec.score.ess)
+    scorer = make_scorer(normalised_spec(spec)["score"], dataset)
     b = spec.search.budget
     outcome, *_ = run_search(prepared, scorer, Budget(b.max_steps, b.max_evaluations,
                                                       b.max_seconds), rng)
@@ -259,6 +297,26 @@ def learning_part(prepared: Prepared) -> Prepared:
     return replace(prepared, dataset=prepared.dataset.take_rows(learn_rows))
 
 
+def evaluation_block(prepared: Prepared, part: Prepared, parent_sets: Any, fitted: Any,
+                     gaussian: bool, pseudo_count: float) -> dict[str, Any]:
+    """The record's ``evaluation``: the split and the held-out fit of the learned graph
+    and of the empty graph, both fitted on the learning rows ``part``."""
+    ev, dataset = prepared.spec.evaluation, prepared.dataset
+    assert ev is not None
+    _, held_rows = split_rows(dataset.rows, ev.holdout, ev.seed)
+    held = dataset.take_rows(held_rows)
+    split = {"holdout": ev.holdout, "seed": ev.seed, "rows_learned": part.dataset.rows,
+             "rows_held_out": held.rows,
+             "rule": "seeded permutation (numpy SeedSequence(seed)); the first "
+                     "round(holdout * rows) rows of it are held out"}
+    if gaussian:
+        assert part.dataset.values is not None and held.values is not None
+        return {**split, **gaussian_held_out_fit(part.dataset.values, held.values, fitted,
+                                                 parent_sets)}
+    return {**split, **held_out_fit(part.dataset.codes, held.codes, dataset.arities, fitted,
+                                    pseudo_count, dataset.names)}
+
+
 def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = None,
           reporter: Reporter = SILENT) -> tuple[dict[str, Any], str]:
     """Learn the structure of a prepared spec; return the record (without run id) and trace.
@@ -275,10 +333,11 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     effective_seed = spec.search.seed if seed is None else seed
     spec_hash = spec_sha256(spec, seed=seed)
     version = code_version()
-    inputs = input_sha256(spec_hash, dataset.sha256, version)
+    inputs = input_sha256(spec_hash, dataset.sha256, version, prepared.bins_fingerprint)
 
-    codes, held_codes, split = learning_rows(dataset.codes, spec.evaluation)
-    scorer = build_scorer(spec.score.name, codes, dataset.arities, ess=spec.score.ess)
+    score_spec = normalised_spec(spec)["score"]
+    part = learning_part(prepared)
+    scorer = make_scorer(score_spec, part.dataset)
     search = spec.search
     b = search.budget
     budget = Budget(b.max_steps, b.max_evaluations, b.max_seconds)
@@ -291,7 +350,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
             if bar is not None:
                 bar.close()
         boot_started = time.perf_counter()
-        bootstrap = learn_bootstrap(learning_part(prepared), engine, reporter)
+        bootstrap = learn_bootstrap(part, engine, reporter)
         boot_seconds = time.perf_counter() - boot_started
     except SearchRefused as refused:
         raise InputError(Problem(prepared.spec_display, refused.message,
@@ -304,16 +363,17 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     score_block: dict[str, Any] = {
         "name": spec.score.name,
         "value": total,
-        "per_row": total / codes.shape[1],
+        "per_row": total / part.dataset.rows,
         "families": families,
         "score_equivalent": spec.score.name in SCORE_EQUIVALENT,
     }
     if spec.score.name == "bdeu":
         score_block["ess"] = spec.score.ess
+    score_block.update(score_record(score_spec, len(names)))
     pseudo_count = spec.fit.pseudo_count if spec.fit is not None else DEFAULT_PSEUDO_COUNT
-    fitted = fit_discrete(codes, dataset.arities, outcome.parent_sets)
-    model = model_document(fitted, names, dataset.states, pseudo_count, int(codes.shape[1]),
-                           dataset.sha256, graph_sha256(edges))
+    gaussian = is_gaussian(score_spec["name"])
+    model, fitted = fit_model(part.dataset, gaussian, outcome.parent_sets, pseudo_count,
+                              graph_sha256(edges))
     record: dict[str, Any] = {
         "run_id": None,
         "spec_name": spec.name,
@@ -329,8 +389,8 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
             "sha256": dataset.sha256,
             "rows": dataset.rows,
             "dropped_rows": dataset.dropped_rows,
-            "columns": {
-                n: {"kind": "discrete", "states": list(s), "kind_reason": "discrete by default"}
+            "columns": prepared.columns if prepared.columns is not None else {
+                n: {"kind": "discrete", "states": list(s), "kind_reason": "inferred-text"}
                 for n, s in zip(names, dataset.states, strict=True)
             },
         },
@@ -365,11 +425,11 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
         "model": model_reference(model),
         "_model": model,
     }
-    if split is not None and held_codes is not None:
-        record["data"].update(rows_learned=split["rows_learned"],
-                              rows_held_out=split["rows_held_out"])
-        record["evaluation"] = {**split, **held_out_fit(
-            codes, held_codes, dataset.arities, fitted, pseudo_count, names)}
+    if spec.evaluation is not None:
+        record["data"].update(rows_learned=part.dataset.rows,
+                              rows_held_out=dataset.rows - part.dataset.rows)
+        record["evaluation"] = evaluation_block(prepared, part, outcome.parent_sets, fitted,
+                                                gaussian, pseudo_count)
     if bootstrap is not None:
         record["bootstrap"] = bootstrap
         record["seconds"]["bootstrap"] = round(boot_seconds, 6)
@@ -382,9 +442,14 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
 
 def run_spec(spec_path: str | Path, results: Path, data_path: str | Path | None = None,
              seed: int | None = None, engine: Engine | None = None,
-             reporter: Reporter = SILENT) -> RunResult:
-    """Prepare, learn and store one spec; report an earlier run with the same inputs."""
-    prepared = prepare(spec_path, data_path)
+             reporter: Reporter = SILENT, reuse_bins: bool | None = None) -> RunResult:
+    """Prepare, learn and store one spec; report an earlier run with the same inputs.
+
+    ``reuse_bins`` (default: when ``data_path`` names a new data drop) cuts continuous
+    columns at the bin edges of the spec's baseline in ``results``.
+    """
+    reuse = data_path is not None if reuse_bins is None else reuse_bins
+    prepared = prepare(spec_path, data_path, bins_from=results if reuse else None)
     record, trace = learn(prepared, seed, engine, reporter)
     return store_learned(prepared, record, trace, results)
 

@@ -92,7 +92,9 @@ def inputs_section(record: Mapping[str, Any]) -> str:
         ("input sha256", record["input_sha256"]), ("code version", record["code_version"]),
         ("graph sha256", record["graph_sha256"]),
         ("model sha256", model.get("sha256")),
-        ("fitted tables", f"{model.get('estimator')}, pseudo-count {model.get('pseudo_count')}"
+        ("fitted model", f"{model.get('estimator')}"
+         + ("" if model.get("pseudo_count") is None
+            else f", pseudo-count {model.get('pseudo_count')}")
          if model else "not stored (record from before fitted models)"),
         ("score", f"{score['name']} {score['value']:.6f} ({score['per_row']:.6f} per row)"),
         ("search", f"{search['method']}, seed {search['seed']}, stop {search['stop_reason']}, "
@@ -156,6 +158,12 @@ def held_out_section(record: Mapping[str, Any]) -> str:
         f"<td class=\"num\">{ll['empty']:.4f}</td></tr>"
         f"<tr><th>difference</th><td class=\"num\">{ll['difference_per_row']:+.6f}</td>"
         "<td></td></tr></table>")
+    if "measure" in ev:  # linear-Gaussian: a density, no unseen cells
+        return (f"<h2>Held-out fit</h2><p class=\"note\">{ev['rows_held_out']} rows held out "
+                f"(share {ev['holdout']:g}, seed {ev['seed']}); linear-Gaussian families "
+                f"fitted on the other {ev['rows_learned']}. Mean log density per row "
+                f"(natural log); higher is better.</p>"
+                + body.replace("log-likelihood per held-out row", "log density per held-out row"))
     by_var = "".join(f"<li>{esc(n)}: {c['configurations']} configurations, {c['states']} "
                      "states</li>" for n, c in unseen.get("by_variable", {}).items())
     return (f"<h2>Held-out fit</h2><p class=\"note\">{ev['rows_held_out']} rows held out "
@@ -266,6 +274,8 @@ def tables_section(model: Mapping[str, Any] | None) -> str:
     if model is None:
         return ("<h2>Fitted tables</h2><p class=\"note\">This record has no fitted model "
                 "(model.json).</p>")
+    if model.get("estimator") == "least-squares":
+        return gaussian_section(model)
     parts = [f"<h2>Fitted tables</h2><p class=\"note\">{esc(model['estimator'])}, "
              f"pseudo-count {model['pseudo_count']:g}, {model['rows']} rows. Each row: a "
              "parent configuration seen in the data, its counts and probabilities.</p>"]
@@ -285,6 +295,21 @@ def tables_section(model: Mapping[str, Any] | None) -> str:
                      f"{var['possible_configurations']} configurations seen)</summary>"
                      f"<table><tr>{head}</tr>{body}</table>{more}</details>")
     return "".join(parts)
+
+
+def gaussian_section(model: Mapping[str, Any]) -> str:
+    """The linear-Gaussian families: intercept, coefficients and residual variance."""
+    rows = "".join(
+        f"<tr><td>{esc(name)}</td><td class=\"num\">{var['intercept']:.6g}</td><td>"
+        + (", ".join(f"{esc(p)} {b:+.6g}" for p, b in var["coefficients"].items())
+           or "no parents")
+        + f"</td><td class=\"num\">{var['residual_variance']:.6g}</td></tr>"
+        for name, var in model["variables"].items())
+    return ("<h2>Fitted model</h2><p class=\"note\">Linear-Gaussian families by least "
+            f"squares on {model['rows']} rows: each variable is its intercept plus the "
+            "coefficients times its parents, plus normal noise of the residual variance "
+            "(maximum likelihood).</p><table><tr><th>variable</th><th>intercept</th>"
+            f"<th>coefficients</th><th>residual variance</th></tr>{rows}</table>")
 
 
 def diff_section(a: Mapping[str, Any], b: Mapping[str, Any]) -> str:

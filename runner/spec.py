@@ -48,9 +48,10 @@ from pydantic import (
 
 from runner.errors import InputError, Problem
 
-IMPLEMENTED_SCORES = ("loglik", "aic", "bic", "bdeu", "k2")
+IMPLEMENTED_SCORES = ("loglik", "aic", "bic", "bdeu", "k2", "gaussian-loglik", "gaussian-bic",
+                      "bge")
 IMPLEMENTED_METHODS = ("hill-climb", "first-ascent", "stochastic", "tabu", "order", "exact")
-IMPLEMENTED_KINDS = ("discrete",)
+IMPLEMENTED_KINDS = ("discrete", "continuous")
 LATER_SECTIONS: tuple[str, ...] = ()
 
 NAME_PATTERN = r"^[a-z0-9]+(-[a-z0-9]+)*$"
@@ -118,16 +119,18 @@ class ColumnSpec(_Section):
     """How one column of the data is read."""
 
     kind: Literal["discrete", "continuous"] = Field(
-        "discrete", description="discrete: values are states; continuous: numbers to be binned"
-        " (continuous is a later capability).")
+        "discrete", description="discrete: values are states; continuous: numbers (binned "
+        "for a discrete score, as they are for a Gaussian one). Undeclared numeric columns "
+        "with more distinct values than max_states are continuous.")
     states: Annotated[list[Variable], Field(min_length=1, json_schema_extra={
         "uniqueItems": True})] | None = Field(
         None, description="discrete only: the states, in this order; a value not listed is "
         "an error.")
     bins: Annotated[StrictInt, Field(ge=2)] | None = Field(
-        None, description="continuous only: number of bins.")
+        None, description="continuous only: number of bins (at least 2); makes the column "
+        "discrete for a discrete score.")
     binning: Literal["quantile", "equal-width"] | None = Field(
-        None, description="continuous only: how bin edges are chosen.")
+        None, description="continuous only: how bin edges are chosen (default quantile).")
 
 
 class DatasetSpec(_Section):
@@ -141,7 +144,8 @@ class DatasetSpec(_Section):
     missing: Literal["error", "drop-rows"] = Field(
         "error", description="What an empty cell does: stop with an error, or drop its row.")
     max_states: Annotated[StrictInt, Field(ge=2)] = Field(
-        64, description="Most distinct values a discrete column may have.")
+        64, description="Most distinct values a discrete column may have; an undeclared "
+        "numeric column with more is continuous.")
     columns: dict[str, ColumnSpec] = Field(
         default_factory=dict, description="Optional per-column kind and state order.")
 
@@ -153,6 +157,14 @@ class ScoreSpec(_Section):
                   "bge"] = Field("bic", description="Score function.")
     ess: Annotated[Real, Field(gt=0)] = Field(
         1.0, description="Equivalent sample size (bdeu only).")
+    alpha_mu: Annotated[Real, Field(gt=0)] | None = Field(
+        None, description="bge only: weight of the prior mean, in rows (null: 1).")
+    alpha_w: Annotated[Real, Field(gt=0)] | None = Field(
+        None, description="bge only: Wishart degrees of freedom, above n - 1 for n variables "
+        "(null: n + 2).")
+    prior_scale: Annotated[Real, Field(gt=0)] | None = Field(
+        None, description="bge only: t of the Wishart scale matrix T = t I (null: alpha_mu "
+        "(alpha_w - n - 1) / (alpha_mu + 1)).")
 
 
 class BudgetSpec(_Section):
@@ -811,11 +823,23 @@ def _column_rules(spec: Spec, where: _Where) -> list[Problem]:
                 if getattr(column, key) is not None:
                     problems.append(where.problem(f"{base}.{key}", f"'{key}' only applies to "
                                                   "continuous columns"))
+        elif column.binning is not None and column.bins is None:
+            problems.append(where.problem(f"{base}.binning", "'binning' needs 'bins' (the "
+                                          "number of bins)", value=column.binning))
         elif column.states is not None:
             problems.append(where.problem(f"{base}.states", "'states' only applies to discrete "
                                           "columns"))
         problems += _repeated_states(base, column.states or [], where)
     return problems
+
+
+def _ignored_score_keys(spec: Spec, where: _Where) -> list[Problem]:
+    given = where.raw.get("score") or {}
+    if spec.score.name == "bge" or not isinstance(given, dict):
+        return []
+    return [where.problem(f"score.{key}", f"'{key}' only applies to score 'bge' (score is "
+                          f"'{spec.score.name}'); it is ignored", severity="warning")
+            for key in ("alpha_mu", "alpha_w", "prior_scale") if given.get(key) is not None]
 
 
 def _repeated_states(base: str, states: list[str], where: _Where) -> list[Problem]:
@@ -1049,6 +1073,7 @@ _RULES: tuple[tuple[frozenset[str], Rule], ...] = (
     (frozenset(), _later_sections),
     (frozenset({"fit", "evaluation"}), _holdout_needs_pseudo_count),
     (frozenset({"dataset.columns"}), _column_rules),
+    (frozenset({"score"}), _ignored_score_keys),
     (frozenset({"search.method", "search.restarts"}), _ignored_search_keys),
     (frozenset({"tiers"}), _tier_repeats),
     (frozenset({"tiers", "required"}), _required_vs_tiers),

@@ -253,7 +253,8 @@ def baseline_from_record(record: dict[str, Any], pinned_utc: str) -> dict[str, A
                   "per_row": score["per_row"]},
         "edges": [list(e) for e in record["edges"]],
         "data": {"sha256": data["sha256"], "rows": data["rows"],
-                 "columns": {n: {"kind": c["kind"], "states": list(c["states"])}
+                 "columns": {n: {"kind": c["kind"], "states": list(c["states"]),
+                                 **({"binning": c["binning"]} if "binning" in c else {})}
                              for n, c in data["columns"].items()}},
         "pinned_utc": pinned_utc,
         **_consensus_of(record),

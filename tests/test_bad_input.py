@@ -59,7 +59,7 @@ CASES: dict[str, tuple[str, str | None, list[str]]] = {
     "missing values": (spec_text(), "a,b,c,d\nx,p,u,m\nx,,u,n\ny,q,v,m\n",
                        ["data.csv", "'b'", "line 3"]),
     "too many states": (spec_text(tiers=""),
-                        "a,b\n" + "".join(f"{i},x\n" for i in range(100)),
+                        "a,b\n" + "".join(f"id{i},x\n" for i in range(100)),
                         ["data.csv", "'a'", "64"]),
 }
 

@@ -14,6 +14,7 @@ from hypothesis import strategies as st
 
 from runner.errors import InputError, Problem
 from runner.spec import (
+    IMPLEMENTED_KINDS,
     IMPLEMENTED_METHODS,
     IMPLEMENTED_SCORES,
     Spec,
@@ -115,7 +116,8 @@ def test_guide_example_loads_with_defaults_lines_and_paths(tmp_path: Path) -> No
 def test_minimal_spec_fills_every_default(tmp_path: Path) -> None:
     spec = load_spec(write(tmp_path, BASE))
     data = normalised_spec(spec)
-    assert data["score"] == {"ess": 1.0, "name": "bic"}
+    assert data["score"] == {"alpha_mu": None, "alpha_w": None, "ess": 1.0, "name": "bic",
+                             "prior_scale": None}
     assert data["search"]["method"] == "hill-climb"
     assert data["search"]["budget"] == {"max_evaluations": None, "max_seconds": 600.0,
                                         "max_steps": 10000}
@@ -141,7 +143,9 @@ def test_spec_is_frozen(tmp_path: Path) -> None:
 
 
 def test_implemented_lists() -> None:
-    assert IMPLEMENTED_SCORES == ("loglik", "aic", "bic", "bdeu", "k2")
+    assert IMPLEMENTED_SCORES == ("loglik", "aic", "bic", "bdeu", "k2", "gaussian-loglik",
+                                  "gaussian-bic", "bge")
+    assert IMPLEMENTED_KINDS == ("discrete", "continuous")
     assert IMPLEMENTED_METHODS == ("hill-climb", "first-ascent", "stochastic", "tabu", "order",
                                    "exact")
 
@@ -344,20 +348,17 @@ def test_sample_is_a_share_or_a_count(tmp_path: Path) -> None:
 # --------------------------------------------------------------------------- this version
 
 
-def test_not_available_in_this_version(tmp_path: Path) -> None:
+def test_every_guide_section_is_available(tmp_path: Path) -> None:
+    # Continuous columns, the Gaussian scores, bootstrap, fit and evaluation: the GUIDE's
+    # later keys all load now (the binned column under a discrete score).
     text = BASE + ("  columns:\n    peak: {kind: continuous, bins: 4, binning: quantile}\n"
-                   "score:\n  name: gaussian-bic\n"
                    "bootstrap: {replicates: 10}\nfit: {pseudo_count: 1.0}\n"
                    "evaluation: {holdout: 0.2}\n")
-    problems = problems_of(write(tmp_path, text))
-    score = only(problems, "score.name")
-    assert "not available in this version of dagmill" in score.message
-    assert "loglik, aic, bic, bdeu, k2" in score.message
-    kind = only(problems, "dataset.columns.peak.kind")
-    assert kind.line == 5 and "available kinds: discrete" in kind.message
-    # bootstrap, fit and evaluation are all available now
-    assert not [p for p in problems
-                if (p.key or "").split(".")[0] in ("bootstrap", "fit", "evaluation")]
+    spec = load_spec(write(tmp_path, text))
+    assert spec.bootstrap is not None and spec.fit is not None and spec.evaluation is not None
+    assert spec.dataset.columns["peak"].kind == "continuous"
+    gauss = load_spec(write(tmp_path, BASE + "score:\n  name: gaussian-bic\n"))
+    assert gauss.score.name == "gaussian-bic"
 
 
 def test_fit_and_evaluation_sections(tmp_path: Path) -> None:

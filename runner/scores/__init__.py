@@ -3,7 +3,9 @@
 A score here is a function of one family's count table: ``f(table, q, n_rows) -> float``.
 The total score of a DAG is the sum of its family scores. :func:`build_scorer` binds a
 score to encoded data and returns a :class:`~runner.scores.cache.FamilyScorer`, which
-counts and caches families by (child, parent set).
+counts and caches families by (child, parent set). The scores of continuous data
+(:mod:`runner.scores.gaussian`) work from sufficient statistics instead of counts;
+:func:`build_gaussian_scorer` binds them, to the same scorer interface.
 """
 
 from __future__ import annotations
@@ -15,6 +17,13 @@ import numpy as np
 
 from runner.scores.cache import FamilyScorer
 from runner.scores.dirichlet import bdeu_family, k2_family
+from runner.scores.gaussian import (
+    GAUSSIAN_SCORES,
+    GaussianScorer,
+    bge_prior,
+    gaussian_family_function,
+    sufficient_statistics,
+)
 from runner.scores.likelihood import aic_family, bic_family, loglik_family
 
 FamilyScore = Callable[[np.ndarray, int, int], float]
@@ -27,7 +36,7 @@ DISCRETE_SCORES: dict[str, FamilyScore] = {
     "k2": k2_family,
 }
 
-SCORE_EQUIVALENT = frozenset({"loglik", "aic", "bic", "bdeu"})
+SCORE_EQUIVALENT = frozenset({"loglik", "aic", "bic", "bdeu", *GAUSSIAN_SCORES})
 
 
 def family_function(name: str, ess: float = 1.0) -> FamilyScore:
@@ -52,4 +61,31 @@ def build_scorer(
     )
 
 
-__all__ = ["DISCRETE_SCORES", "SCORE_EQUIVALENT", "FamilyScorer", "build_scorer"]
+def build_gaussian_scorer(
+    name: str,
+    values: np.ndarray,
+    *,
+    alpha_mu: float | None = None,
+    alpha_w: float | None = None,
+    prior_scale: float | None = None,
+    cache_limit: int | None = None,
+) -> GaussianScorer:
+    """A cached scorer of Gaussian score ``name`` over ``values`` (n_vars x n_rows floats).
+
+    The sufficient statistics are computed here, once. BGe's prior keys (None: the
+    documented defaults) are ignored by the other scores; ``ValueError`` for bad ones.
+    """
+    stats = sufficient_statistics(values)
+    prior = bge_prior(stats.n_vars, alpha_mu, alpha_w, prior_scale) if name == "bge" else None
+    return GaussianScorer(gaussian_family_function(name, prior), stats, cache_limit)
+
+
+__all__ = [
+    "DISCRETE_SCORES",
+    "GAUSSIAN_SCORES",
+    "SCORE_EQUIVALENT",
+    "FamilyScorer",
+    "GaussianScorer",
+    "build_gaussian_scorer",
+    "build_scorer",
+]

@@ -50,10 +50,18 @@ class FamilyScorer:
         self.codes = codes
         self.arities = arities
         self.n_vars, self.n_rows = codes.shape
+        self._start_cache(cache_limit)
+
+    def _start_cache(self, cache_limit: int | None) -> None:
         self.cache_limit = DEFAULT_CACHE_LIMIT if cache_limit is None else cache_limit
         self._cache: OrderedDict[tuple[int, int], float] = OrderedDict()
         self.evaluations = 0
         self.hits = 0
+
+    def _compute(self, child: int, mask: int) -> float:
+        """The family score itself (a cache miss); other data kinds override this."""
+        table, q = family_counts(self.codes, self.arities, child, mask_members(mask))
+        return self.function(table, q, self.n_rows)
 
     def family(self, child: int, parents: Iterable[int]) -> float:
         """Score of ``child`` given exactly ``parents``."""
@@ -66,8 +74,7 @@ class FamilyScorer:
             self.hits += 1
             self._cache.move_to_end(key)
             return cached
-        table, q = family_counts(self.codes, self.arities, child, mask_members(mask))
-        value = self.function(table, q, self.n_rows)
+        value = self._compute(child, mask)
         self.evaluations += 1
         self._cache[key] = value
         if len(self._cache) > self.cache_limit:

@@ -1,0 +1,259 @@
+"""Family scores for linear-Gaussian networks: gaussian-loglik, gaussian-bic and BGe.
+
+Every score here is a function of the data's sufficient statistics only: the number of
+rows N, the column means and the scatter matrix S = sum_r (x_r - mean)(x_r - mean)^T.
+They are computed once (:func:`sufficient_statistics`, one pass over the rows); a family
+score then needs the submatrix of S on the family, a small linear solve or
+log-determinant, never another pass over the rows.
+
+Linear-Gaussian family (child y, parents Z): y = b0 + b^T z + e, e ~ N(0, sigma^2),
+fitted by least squares with the maximum-likelihood variance:
+
+    b       = S_ZZ^{-1} S_Zy,     b0 = mean_y - b^T mean_Z
+    RSS     = S_yy - S_yZ S_ZZ^{-1} S_Zy,   sigma^2 = RSS / N
+    LL(y|Z) = -(N / 2) (ln(2 pi sigma^2) + 1)
+    BIC     = LL - (ln N / 2) k,   k = |Z| + 2
+
+k counts the family's free parameters: the intercept, one coefficient per parent and the
+residual variance (Schwarz 1978 for the penalty). Both totals are score-equivalent:
+Markov-equivalent DAGs define the same set of multivariate normal distributions, so the
+maximised likelihood is the same, and they have the same number of edges, so the same
+total parameter count (sum over families of |Z| + 2 = edges + 2 n).
+
+BGe (Geiger & Heckerman 1994, "Learning Gaussian networks"; with the correction of
+Kuipers, Moffa & Heckerman 2014, "Addendum on the scoring of Gaussian directed acyclic
+graphical models", Annals of Statistics 42(4)): the log marginal likelihood under a
+normal-Wishart prior on the mean and precision of all n variables, with
+
+* alpha_mu > 0: the prior mean's weight, in equivalent rows (default 1);
+* alpha_w > n - 1: the Wishart degrees of freedom (default n + 2);
+* T = t I: the Wishart scale matrix, t > 0 (default t = alpha_mu (alpha_w - n - 1) /
+  (alpha_mu + 1), which sets the prior expected covariance to the identity);
+* nu: the prior mean, taken to be the column means of the data (so the term
+  N alpha_mu / (N + alpha_mu) (nu - mean)(nu - mean)^T of R vanishes).
+
+With R = T + S and, for a set Y of l variables,
+
+    ln p(d_Y) = -(l N / 2) ln pi + (l / 2) ln(alpha_mu / (N + alpha_mu))
+                + ln Gamma_l((N + alpha_w - n + l) / 2) - ln Gamma_l((alpha_w - n + l) / 2)
+                + ((alpha_w - n + l) / 2) ln det T_YY - ((N + alpha_w - n + l) / 2) ln det R_YY
+
+(Kuipers et al. 2014: the marginal of the Wishart on Y has alpha_w - n + l degrees of
+freedom, which the 1994 paper's formula got wrong), the family score of y with parents Z
+is ln p(d_{Z+y}) - ln p(d_Z). The multivariate gamma functions cancel to one ordinary
+gamma ratio, so with l = |Z| + 1:
+
+    BGe(y|Z) = -(N / 2) ln pi + (1 / 2) ln(alpha_mu / (N + alpha_mu))
+               + ln Gamma((N + alpha_w - n + l) / 2) - ln Gamma((alpha_w - n + l) / 2)
+               + ((alpha_w - n + l) / 2) l ln t - ((alpha_w - n + l - 1) / 2) (l - 1) ln t
+               - ((N + alpha_w - n + l) / 2) ln det R_{Z+y}
+               + ((N + alpha_w - n + l - 1) / 2) ln det R_Z
+
+BGe is score-equivalent (Geiger & Heckerman 1994). It depends on the measurement units
+through T = t I: columns on very different scales are best standardised first.
+Natural logarithms throughout.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from runner.scores.cache import FamilyScorer, mask_members
+
+#: Names of the scores of this module.
+GAUSSIAN_SCORES: tuple[str, ...] = ("gaussian-loglik", "gaussian-bic", "bge")
+
+DEFAULT_ALPHA_MU = 1.0
+
+
+@dataclass(frozen=True, eq=False)
+class GaussianStatistics:
+    """Sufficient statistics of continuous data: rows, column means, scatter matrix.
+
+    ``scatter[i, j] = sum_r (x_ir - mean_i)(x_jr - mean_j)`` (not divided by N); it is
+    exactly symmetric.
+    """
+
+    n_rows: int
+    means: np.ndarray
+    scatter: np.ndarray
+
+    @property
+    def n_vars(self) -> int:
+        return int(self.means.shape[0])
+
+
+def sufficient_statistics(values: np.ndarray) -> GaussianStatistics:
+    """Means and scatter matrix of ``values`` (shape n_vars x n_rows, float64).
+
+    One pass over the rows. The products are summed by ``numpy.einsum`` without BLAS, so
+    the bits do not depend on the number of threads of a linear algebra library.
+    """
+    data = np.asarray(values, dtype=np.float64)
+    if data.ndim != 2 or data.shape[1] == 0:
+        raise ValueError("values must be a 2-D array with at least one row")
+    means = data.mean(axis=1)
+    centred = data - means[:, None]
+    scatter = np.einsum("ir,jr->ij", centred, centred, optimize=False)
+    scatter = np.triu(scatter) + np.triu(scatter, 1).T
+    means.flags.writeable = False
+    scatter.flags.writeable = False
+    return GaussianStatistics(int(data.shape[1]), means, scatter)
+
+
+def residual_sum_of_squares(stats: GaussianStatistics, child: int,
+                            parents: Sequence[int]) -> float:
+    """RSS of the least-squares fit (with intercept) of ``child`` on ``parents``."""
+    syy = float(stats.scatter[child, child])
+    if not parents:
+        return syy
+    p = list(parents)
+    szz = stats.scatter[np.ix_(p, p)]
+    szy = stats.scatter[p, child]
+    beta = np.linalg.solve(szz, szy)
+    rss = syy - float(szy @ beta)
+    # Rounding can take an exact fit a hair below zero; keep the logarithm finite.
+    return max(rss, syy * 1e-300, np.finfo(np.float64).tiny)
+
+
+@dataclass(frozen=True)
+class LinearGaussianFamily:
+    """The fitted conditional of a child on its parents: y = intercept + sum c_p z_p + e,
+    e ~ N(0, variance), variance the maximum-likelihood (RSS / N) residual variance."""
+
+    intercept: float
+    coefficients: tuple[float, ...]
+    variance: float
+
+
+def linear_gaussian_parameters(stats: GaussianStatistics, child: int,
+                               parents: Sequence[int]) -> LinearGaussianFamily:
+    """Least-squares parameters of ``child`` on ``parents`` (coefficients in the order of
+    ``parents``) and the maximum-likelihood residual variance, from the statistics only."""
+    p = list(parents)
+    if p:
+        beta = np.linalg.solve(stats.scatter[np.ix_(p, p)], stats.scatter[p, child])
+    else:
+        beta = np.zeros(0)
+    intercept = float(stats.means[child] - beta @ stats.means[p]) if p else float(
+        stats.means[child])
+    rss = residual_sum_of_squares(stats, child, p)
+    return LinearGaussianFamily(intercept, tuple(float(b) for b in beta), rss / stats.n_rows)
+
+
+def gaussian_parameter_count(parents: Sequence[int]) -> int:
+    """Free parameters of a linear-Gaussian family: intercept + one per parent + variance."""
+    return len(parents) + 2
+
+
+def gaussian_loglik_family(stats: GaussianStatistics, child: int,
+                           parents: Sequence[int]) -> float:
+    """Maximised log-likelihood of the family, -(N/2)(ln(2 pi RSS/N) + 1)."""
+    n = stats.n_rows
+    rss = residual_sum_of_squares(stats, child, parents)
+    return -0.5 * n * (math.log(2.0 * math.pi * rss / n) + 1.0)
+
+
+def gaussian_bic_family(stats: GaussianStatistics, child: int,
+                        parents: Sequence[int]) -> float:
+    """Family log-likelihood minus (ln N / 2) per free parameter (|parents| + 2)."""
+    penalty = 0.5 * math.log(stats.n_rows) * gaussian_parameter_count(parents)
+    return gaussian_loglik_family(stats, child, parents) - penalty
+
+
+@dataclass(frozen=True)
+class BgePrior:
+    """BGe's prior hyperparameters, resolved for ``n_vars`` variables (see the module)."""
+
+    alpha_mu: float
+    alpha_w: float
+    scale: float
+
+    def as_record(self) -> dict[str, float]:
+        return {"alpha_mu": self.alpha_mu, "alpha_w": self.alpha_w, "prior_scale": self.scale}
+
+
+def bge_prior(n_vars: int, alpha_mu: float | None = None, alpha_w: float | None = None,
+              prior_scale: float | None = None) -> BgePrior:
+    """Defaults filled in and ranges checked (``ValueError`` naming the key)."""
+    mu = DEFAULT_ALPHA_MU if alpha_mu is None else float(alpha_mu)
+    w = float(n_vars + 2) if alpha_w is None else float(alpha_w)
+    if not mu > 0:
+        raise ValueError(f"alpha_mu must be above 0, not {mu:g}")
+    if not w > n_vars - 1:
+        raise ValueError(f"alpha_w must be above n - 1 = {n_vars - 1} for {n_vars} variables "
+                         f"(a Wishart prior needs it), not {w:g}")
+    if prior_scale is None:
+        if not w > n_vars + 1:
+            raise ValueError(f"alpha_w must be above n + 1 = {n_vars + 1} for the default "
+                             f"prior_scale alpha_mu (alpha_w - n - 1) / (alpha_mu + 1) to be "
+                             f"positive, not {w:g}; raise alpha_w or set prior_scale")
+        t = mu * (w - n_vars - 1) / (mu + 1)
+    else:
+        t = float(prior_scale)
+        if not t > 0:
+            raise ValueError(f"prior_scale must be above 0, not {t:g}")
+    return BgePrior(mu, w, t)
+
+
+def _logdet(matrix: np.ndarray) -> float:
+    if matrix.shape[0] == 0:
+        return 0.0
+    sign, value = np.linalg.slogdet(matrix)
+    if sign <= 0:
+        raise np.linalg.LinAlgError("matrix is not positive definite")
+    return float(value)
+
+
+def bge_family(stats: GaussianStatistics, child: int, parents: Sequence[int],
+               prior: BgePrior) -> float:
+    """BGe family score ln p(d_{parents+child}) - ln p(d_parents) (see the module)."""
+    n, big_n = stats.n_vars, stats.n_rows
+    l = len(parents) + 1  # noqa: E741 - the papers' symbol
+    a = prior.alpha_w - n + l
+    p = list(parents)
+    family = [*p, child]
+    r_family = stats.scatter[np.ix_(family, family)] + prior.scale * np.eye(l)
+    r_parents = stats.scatter[np.ix_(p, p)] + prior.scale * np.eye(l - 1)
+    log_t = math.log(prior.scale)
+    return (-0.5 * big_n * math.log(math.pi)
+            + 0.5 * math.log(prior.alpha_mu / (big_n + prior.alpha_mu))
+            + math.lgamma((big_n + a) / 2) - math.lgamma(a / 2)
+            + 0.5 * a * l * log_t - 0.5 * (a - 1) * (l - 1) * log_t
+            - 0.5 * (big_n + a) * _logdet(r_family)
+            + 0.5 * (big_n + a - 1) * _logdet(r_parents))
+
+
+GaussianFamilyScore = Callable[[GaussianStatistics, int, Sequence[int]], float]
+
+
+class GaussianScorer(FamilyScorer):
+    """A :class:`FamilyScorer` over sufficient statistics instead of count tables: the
+    same cache, keys and counters, so every search method uses it unchanged."""
+
+    def __init__(self, function: GaussianFamilyScore, stats: GaussianStatistics,
+                 cache_limit: int | None = None) -> None:
+        self.function = function  # type: ignore[assignment]
+        self.stats = stats
+        self.n_vars, self.n_rows = stats.n_vars, stats.n_rows
+        self._start_cache(cache_limit)
+
+    def _compute(self, child: int, mask: int) -> float:
+        return self.function(self.stats, child, mask_members(mask))  # type: ignore[call-arg]
+
+
+def gaussian_family_function(name: str, prior: BgePrior | None = None) -> GaussianFamilyScore:
+    """The family score called ``name``; BGe needs its resolved ``prior``."""
+    if name == "gaussian-loglik":
+        return gaussian_loglik_family
+    if name == "gaussian-bic":
+        return gaussian_bic_family
+    if name == "bge":
+        if prior is None:
+            raise ValueError("bge needs its prior (bge_prior)")
+        return lambda stats, child, parents: bge_family(stats, child, parents, prior)
+    raise ValueError(f"unknown Gaussian score {name!r}; known: {', '.join(GAUSSIAN_SCORES)}")
