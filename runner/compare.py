@@ -19,7 +19,7 @@ from typing import Any
 from runner.bootstrap import consensus_view
 from runner.data import load_dataset, loader_settings
 from runner.errors import InputError, Problem
-from runner.evaluation import held_out_comparison, held_out_comparison_lines
+from runner.evaluation import held_out_comparison, held_out_comparison_lines, split_rows
 from runner.graph import (
     Cpdag,
     cpdag,
@@ -229,7 +229,9 @@ def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
 
     The data is read the way the run read it (the spec's declared states, missing-value
     rule and state limit) and must still hash to the record's data sha256, unless
-    ``data_path`` names a file explicitly. Raises InputError otherwise.
+    ``data_path`` names a file explicitly. Raises InputError otherwise. A run with a
+    held-out share is rescored on its learning rows (the same seeded split), as its own
+    score was.
     """
     explicit = data_path is not None
     path = Path(data_path) if explicit else record_data_file(record)
@@ -257,11 +259,16 @@ def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
                                spec_file=str(record.get("spec_path") or "<record>"),
                                data_file=str(path), stored_bins=stored,
                                stored_from=f"run {record['run_id']}")
-    scorer = make_scorer(score, resolved.dataset)
+    rows = resolved.dataset
+    held = record.get("evaluation")
+    if isinstance(held, Mapping) and "holdout" in held:
+        # like for like with the run's own score: its learning rows, by the same split
+        rows = rows.take_rows(split_rows(rows.rows, held["holdout"], held["seed"])[0])
+    scorer = make_scorer(score, rows)
     parents = parents_from_edges(names, record["edges"])
     total = scorer.total(parents)
     return {"score": score_name, "ess": ess if score_name == "bdeu" else None, "value": total,
-            "per_row": total / dataset.rows, "data_sha256": dataset.sha256,
+            "per_row": total / rows.rows, "rows": rows.rows, "data_sha256": dataset.sha256,
             "data_path": str(path)}
 
 

@@ -149,3 +149,15 @@ def test_bootstrap_replicates_resample_the_learning_rows_only(tmp_path: Path) ->
         prepared.dataset.rows)
     kept = np.sort(order[round(HOLDOUT * prepared.dataset.rows):])
     assert np.array_equal(part.dataset.codes, prepared.dataset.codes[:, kept])
+
+
+def test_rescoring_a_held_out_run_uses_its_learning_rows(
+        stored: tuple[Path, dict, dict]) -> None:
+    # Rescored under its own score, a held-out run must give back its own stored score:
+    # both are computed on the learning rows of the same seeded split.
+    from runner.compare import rescore
+
+    _, record, _ = stored
+    again = rescore(record, record["score"]["name"])
+    assert again["rows"] == record["data"]["rows_learned"]
+    assert again["value"] == pytest.approx(record["score"]["value"], rel=1e-12)
