@@ -52,7 +52,7 @@ IMPLEMENTED_SCORES = ("loglik", "aic", "bic", "bdeu", "k2", "gaussian-loglik", "
                       "bge")
 IMPLEMENTED_METHODS = ("hill-climb", "first-ascent", "stochastic", "tabu", "order", "exact")
 IMPLEMENTED_KINDS = ("discrete", "continuous")
-LATER_SECTIONS: tuple[str, ...] = ()
+OPTIONAL_SECTIONS = ("bootstrap", "fit", "evaluation")  # a broken one is dropped whole
 
 NAME_PATTERN = r"^[a-z0-9]+(-[a-z0-9]+)*$"
 SHA256_PATTERN = r"^[0-9a-f]{64}$"
@@ -571,7 +571,7 @@ def _partial_spec(data: dict[str, Any], broken: frozenset[str]) -> Spec | None:
     good = copy.deepcopy(data)
     for key in broken:
         _drop(good, key.split(".") if key else [])
-    for section in (*LATER_SECTIONS, "bootstrap"):  # a broken section goes whole
+    for section in OPTIONAL_SECTIONS:  # a broken section goes whole
         if any(_overlaps(section, key) for key in broken):
             good.pop(section, None)
     good.setdefault("name", "stand-in")
@@ -787,13 +787,8 @@ def _score_available(spec: Spec, where: _Where) -> list[Problem]:
                           "dagmill; available: " + ", ".join(IMPLEMENTED_SCORES), value=name)]
 
 
-def _later_sections(spec: Spec, where: _Where) -> list[Problem]:
-    available = [k for k in Spec.model_fields if k not in LATER_SECTIONS]
-    return [
-        where.problem(name, f"'{name}' is not available in this version of dagmill; "
-                      "available sections: " + ", ".join(available))
-        for name in LATER_SECTIONS if where.raw.get(name) is not None
-    ] + ([where.problem("gate.on", "gating on 'consensus' needs a bootstrap section "
+def _consensus_needs_bootstrap(spec: Spec, where: _Where) -> list[Problem]:
+    return ([where.problem("gate.on", "gating on 'consensus' needs a bootstrap section "
                         "(bootstrap: {replicates: N, seed: S, threshold: T}); add one or use "
                         "'run'", value="consensus")]
          if spec.gate.on == "consensus" and where.raw.get("bootstrap") is None else [])
@@ -1070,7 +1065,7 @@ def _repeated_pairs(section: str) -> Rule:
 _RULES: tuple[tuple[frozenset[str], Rule], ...] = (
     (frozenset({"search.method"}), _method_available),
     (frozenset({"score.name"}), _score_available),
-    (frozenset(), _later_sections),
+    (frozenset(), _consensus_needs_bootstrap),
     (frozenset({"fit", "evaluation"}), _holdout_needs_pseudo_count),
     (frozenset({"dataset.columns"}), _column_rules),
     (frozenset({"score"}), _ignored_score_keys),
