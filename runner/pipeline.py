@@ -41,8 +41,8 @@ from runner.search import (
     local_search,
     with_restarts,
 )
-from runner.search.exact import exact_search
-from runner.search.order import order_search
+from runner.search.exact import exact_plan, exact_search
+from runner.search.order import order_plan, order_search
 from runner.search.parent_sets import SearchRefused
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
 from runner.store import find_twin, model_reference, read_baseline, trace_csv, write_run
@@ -143,7 +143,25 @@ def validate(spec_path: str | Path) -> tuple[list[Problem], list[Problem]]:
     except InputError as exc:
         errors = [p for p in exc.problems if p.severity == "error"]
         return errors, [p for p in exc.problems if p.severity != "error"]
-    return [], prepared.warnings
+    refused = search_refusal(prepared)
+    return ([] if refused is None else [refused]), prepared.warnings
+
+
+def search_refusal(prepared: Prepared) -> Problem | None:
+    """Why the spec's exhaustive search (order or exact) would be refused, before any
+    score is computed; None when it would run (or the method is a local one)."""
+    search, names = prepared.spec.search, prepared.dataset.names
+    try:
+        if search.method == "order":
+            order_plan(prepared.constraints, total_order(prepared.spec, names), names,
+                       search.max_candidate_sets)
+        elif search.method == "exact":
+            exact_plan(prepared.constraints, names, search.max_variables,
+                       search.max_candidate_sets)
+    except SearchRefused as refused:
+        return Problem(prepared.spec_display, refused.message,
+                       line=prepared.spec.line_of(refused.key), key=refused.key)
+    return None
 
 
 def total_order(spec: Spec, names: tuple[str, ...]) -> list[int]:

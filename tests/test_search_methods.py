@@ -198,6 +198,12 @@ def test_method_parameters_bad_input(tmp_path: Path, case: str) -> None:
     for fragment in fragments:
         assert fragment in result.stderr, (fragment, result.stderr)
     assert not (tmp_path / "results").exists()
+    # validate reports the same problem, before anything would be scored
+    checked = subprocess.run([sys.executable, "-m", "runner", "validate", "spec.yaml"],
+                             cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert checked.returncode == 2, checked.stdout + checked.stderr
+    for fragment in fragments:
+        assert fragment in checked.stdout + checked.stderr, (fragment, checked.stdout)
 
 
 def test_tabu_tenure_on_hill_climb_is_a_warning(tmp_path: Path) -> None:

@@ -18,7 +18,7 @@ plus one family score per candidate parent set in step 1.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
@@ -43,6 +43,32 @@ def memory_estimate(n: int) -> int:
     return n * (1 << n) * (8 + 8) + (1 << n) * (8 + 8)
 
 
+def exact_plan(constraints: Constraints, names: Sequence[str],
+               variable_limit: int = DEFAULT_VARIABLE_LIMIT,
+               candidate_limit: int = DEFAULT_CANDIDATE_LIMIT
+               ) -> list[tuple[tuple[int, ...], tuple[int, ...]]]:
+    """Per variable its forced and free candidate parents. Raises SearchRefused above
+    ``variable_limit`` variables or ``candidate_limit`` candidate sets of one variable
+    (checked before anything is scored)."""
+    n = constraints.n_vars
+    if n > variable_limit:
+        raise SearchRefused("search.method", (
+            f"exact search over {n} variables is refused (limit {variable_limit}): it would "
+            f"need about {memory_estimate(n) / 2**30:.1f} GiB and 2^{n} subsets; use "
+            "hill-climb or tabu, or order with a known order"))
+    cap = constraints.cap()
+    plans = []
+    for v in range(n):
+        forced, free = candidates_of(v, [u for u in range(n) if u != v], constraints)
+        count = candidate_count(len(free), cap, len(forced))
+        if count > candidate_limit:
+            raise SearchRefused("parent_cap", (
+                f"{names[v]!r} has {count:,} candidate parent sets, more than the limit of "
+                f"{candidate_limit:,}; lower parent_cap or forbid edges"))
+        plans.append((tuple(forced), tuple(free)))
+    return plans
+
+
 def exact_search(
     scorer: FamilyScorer,
     constraints: Constraints,
@@ -55,22 +81,9 @@ def exact_search(
     """The optimal DAG; also the candidate parent sets scored per variable. ``tick`` (a
     progress bar's) is called once per variable scored and once per layer of subsets."""
     n = constraints.n_vars
-    if n > variable_limit:
-        raise SearchRefused("search.method", (
-            f"exact search over {n} variables is refused (limit {variable_limit}): it would "
-            f"need about {memory_estimate(n) / 2**30:.1f} GiB and 2^{n} subsets; use "
-            "hill-climb or tabu, or order with a known order"))
     cap = constraints.cap()
     full = (1 << n) - 1
-    plans = []
-    for v in range(n):
-        forced, free = candidates_of(v, [u for u in range(n) if u != v], constraints)
-        count = candidate_count(len(free), cap, len(forced))
-        if count > candidate_limit:
-            raise SearchRefused("parent_cap", (
-                f"{names[v]!r} has {count:,} candidate parent sets, more than the limit of "
-                f"{candidate_limit:,}; lower parent_cap or forbid edges"))
-        plans.append((forced, free))
+    plans = exact_plan(constraints, names, variable_limit, candidate_limit)
 
     counts: dict[str, int] = {}
     best_score = np.full((n, 1 << n), -np.inf)

@@ -28,15 +28,12 @@ from runner.search.parent_sets import (
 from runner.search.result import SearchOutcome
 
 
-def order_search(
-    scorer: FamilyScorer,
-    constraints: Constraints,
-    order: Sequence[int],
-    budget: Budget,
-    names: Sequence[str],
-    limit: int = DEFAULT_CANDIDATE_LIMIT,
-) -> tuple[SearchOutcome, dict[str, int]]:
-    """The best DAG consistent with ``order``; also the candidate sets scored per variable."""
+def order_plan(constraints: Constraints, order: Sequence[int], names: Sequence[str],
+               limit: int = DEFAULT_CANDIDATE_LIMIT
+               ) -> list[tuple[int, tuple[int, ...], tuple[int, ...]]]:
+    """Per variable in ``order``: its forced and free candidate parents among its
+    predecessors. Raises SearchRefused when a required parent comes later or a variable
+    has more than ``limit`` candidate sets (checked before anything is scored)."""
     cap = constraints.cap()
     plan = []
     for position, child in enumerate(order):
@@ -50,7 +47,21 @@ def order_search(
             raise SearchRefused("search.method", f"{names[child]!r} has {count:,} candidate "
                                 f"parent sets under this order, more than the limit of "
                                 f"{limit:,}; lower parent_cap or forbid edges")
-        plan.append((child, forced, free))
+        plan.append((child, tuple(forced), tuple(free)))
+    return plan
+
+
+def order_search(
+    scorer: FamilyScorer,
+    constraints: Constraints,
+    order: Sequence[int],
+    budget: Budget,
+    names: Sequence[str],
+    limit: int = DEFAULT_CANDIDATE_LIMIT,
+) -> tuple[SearchOutcome, dict[str, int]]:
+    """The best DAG consistent with ``order``; also the candidate sets scored per variable."""
+    cap = constraints.cap()
+    plan = order_plan(constraints, order, names, limit)
     best: list[tuple[int, ...]] = [() for _ in order]
     for child, forced, _ in plan:
         best[child] = tuple(forced)
