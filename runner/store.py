@@ -90,6 +90,22 @@ def model_reference(model: dict[str, Any]) -> dict[str, Any]:
             "pseudo_count": model.get("pseudo_count"), "estimator": model.get("estimator")}
 
 
+RECORD_HASH_KEY = "record_sha256"
+
+
+def record_sha256(record: dict[str, Any]) -> str:
+    """The sha256 of a record's stored JSON without its own ``record_sha256`` key."""
+    return sha256_text(dump_json({k: v for k, v in record.items() if k != RECORD_HASH_KEY}))
+
+
+def sealed(record: dict[str, Any], trace: str) -> dict[str, Any]:
+    """The record with ``trace_sha256`` (of trace.csv) and ``record_sha256`` (of every
+    other key, so of the model's and the trace's hashes too) added."""
+    out = {**record, "trace_sha256": sha256_text(trace)}
+    out.pop(RECORD_HASH_KEY, None)
+    return {**out, RECORD_HASH_KEY: record_sha256(out)}
+
+
 def write_run(root: Path, record: dict[str, Any], trace: str,
               model: dict[str, Any] | None = None) -> tuple[str, Path]:
     """Store a run (and its fitted model, if given); return its final run id (a suffix is
@@ -101,7 +117,7 @@ def write_run(root: Path, record: dict[str, Any], trace: str,
         base_id = record["run_id"]
         for attempt in range(1, 1000):
             run_id = base_id if attempt == 1 else f"{base_id}-{attempt}"
-            record = {**record, "run_id": run_id}
+            record = sealed({**record, "run_id": run_id}, trace)
             (staging / "run.json").write_text(dump_json(record), encoding="utf-8")
             (staging / "trace.csv").write_text(trace, encoding="utf-8")
             if model is not None:
@@ -140,7 +156,9 @@ def all_runs(root: Path) -> list[Path]:
 
 
 def read_run(folder: Path) -> dict[str, Any]:
-    """Read a run record and check it against its own graph hash (a hand edit is refused)."""
+    """Read a run record and check it against its hashes: the graph's, the consensus's, the
+    model file's, the whole record's and the trace's (a hand edit is refused). Records
+    from before a hash existed are read without that check."""
     path = folder / "run.json"
     try:
         record = json.loads(path.read_text(encoding="utf-8"))
@@ -164,6 +182,22 @@ def read_run(folder: Path) -> dict[str, Any]:
                                      "from version control or re-run the spec",
                                      key="bootstrap.consensus.edges"))
     read_model(folder, record)
+    if RECORD_HASH_KEY in record and record_sha256(record) != record[RECORD_HASH_KEY]:
+        raise InputError(Problem(str(path), "record content does not match its "
+                                 "record_sha256: run.json was edited by hand; restore it "
+                                 "from version control or re-run the spec",
+                                 key=RECORD_HASH_KEY))
+    if "trace_sha256" in record:
+        trace = folder / "trace.csv"
+        try:
+            text = trace.read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError):
+            text = None
+        if text is None or sha256_text(text) != record["trace_sha256"]:
+            raise InputError(Problem(str(trace), "the search trace is missing or does not "
+                                     "match the record's trace_sha256 (edited by hand); "
+                                     "restore it from version control or re-run the spec",
+                                     key="trace_sha256"))
     return record
 
 

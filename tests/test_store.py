@@ -77,3 +77,30 @@ def test_atomic_write_leaves_old_file_on_failure(tmp_path: Path) -> None:
 def test_trace_floats_round_trip() -> None:
     text = trace_csv([(1, "add", "a", "b", 0.1 + 0.2, -12.000000000000002)])
     assert text.splitlines()[1] == "1,add,a,b,0.30000000000000004,-12.000000000000002"
+
+
+def test_any_hand_edit_of_the_record_or_trace_is_refused(tmp_path: Path) -> None:
+    _, folder = write_run(tmp_path, record("20261201T000000Z-cdcdcdcdcd"),
+                          trace_csv([(1, "add", "a", "b", 1.5, -10.0)]))
+    original = (folder / "run.json").read_text()
+    assert read_run(folder)["record_sha256"]
+    data = json.loads(original)
+    data["seconds"] = {"search": 0.0, "total": 0.0}  # any key, not only the edges
+    (folder / "run.json").write_text(json.dumps(data))
+    with pytest.raises(InputError, match="record_sha256"):
+        read_run(folder)
+    (folder / "run.json").write_text(original)
+    (folder / "trace.csv").write_text("step,move,from,to,delta,score\n")
+    with pytest.raises(InputError, match="trace_sha256"):
+        read_run(folder)
+    (folder / "trace.csv").unlink()
+    with pytest.raises(InputError, match="trace"):
+        read_run(folder)
+
+
+def test_a_record_without_the_newer_hashes_is_still_read(tmp_path: Path) -> None:
+    _, folder = write_run(tmp_path, record("20261201T000000Z-efefefefef"), trace_csv([]))
+    data = json.loads((folder / "run.json").read_text())
+    del data["record_sha256"], data["trace_sha256"]
+    (folder / "run.json").write_text(json.dumps(data))
+    assert read_run(folder)["run_id"] == "20261201T000000Z-efefefefef"
