@@ -12,6 +12,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from html import escape
+from itertools import pairwise
 
 from runner.layout import Band
 
@@ -98,7 +99,32 @@ def _positions(bands: Sequence[Band]) -> tuple[dict[str, tuple[float, float]], f
     return pos, GUTTER + inner + 16.0
 
 
-def _edge_path(a: tuple[float, float], b: tuple[float, float]) -> str:
+def _waypoints(a: tuple[float, float], b: tuple[float, float],
+               rows: Sequence[tuple[float, Sequence[tuple[float, float]]]]
+               ) -> list[tuple[float, float]]:
+    """Where an edge crosses the bands strictly between its ends: on the straight line
+    when that misses every node there, else in the gap between nodes nearest to it.
+    ``rows`` lists each band's centre y and its nodes' (x, half width)."""
+    (x1, y1), (x2, y2) = a, b
+    lo, hi = min(y1, y2), max(y1, y2)
+    points = []
+    for y, nodes in sorted(rows, key=lambda r: r[0], reverse=y2 < y1):
+        if not lo + 1e-9 < y < hi - 1e-9:
+            continue
+        x = x1 + (x2 - x1) * (y - y1) / (y2 - y1)
+        if any(abs(x - nx) < hw + 8.0 for nx, hw in nodes):
+            xs = sorted(nodes)
+            gaps = [xs[0][0] - xs[0][1] - 14.0, xs[-1][0] + xs[-1][1] + 14.0]
+            gaps += [(p[0] + p[1] + q[0] - q[1]) / 2 for p, q in pairwise(xs)]
+            x = min(gaps, key=lambda g: (abs(g - x), g))
+        points.append((x, y))
+    return points
+
+
+def _edge_path(a: tuple[float, float], b: tuple[float, float],
+               via: Sequence[tuple[float, float]] = ()) -> str:
+    """A curve from node ``a`` to node ``b``: an arc over the band for a same-band pair,
+    else vertical-tangent cubic pieces through the waypoints ``via``."""
     (x1, y1), (x2, y2) = a, b
     half = NODE_H / 2
     if abs(y1 - y2) < 1e-9:  # same band: an arc over the band
@@ -109,8 +135,12 @@ def _edge_path(a: tuple[float, float], b: tuple[float, float]) -> str:
     down = y2 > y1
     sy = y1 + half if down else y1 - half
     ty = y2 - half - 2 if down else y2 + half + 2
-    mid = (sy + ty) / 2
-    return f"M{_n(x1)} {_n(sy)} C{_n(x1)} {_n(mid)} {_n(x2)} {_n(mid)} {_n(x2)} {_n(ty)}"
+    points = [(x1, sy), *via, (x2, ty)]
+    pieces = [f"M{_n(x1)} {_n(sy)}"]
+    for (px, py), (qx, qy) in pairwise(points):
+        mid = (py + qy) / 2
+        pieces.append(f"C{_n(px)} {_n(mid)} {_n(qx)} {_n(mid)} {_n(qx)} {_n(qy)}")
+    return " ".join(pieces)
 
 
 def _legend(fig: str, entries: Sequence[tuple[str, str]], top: float,
@@ -154,6 +184,8 @@ def network_svg(fig: str, bands: Sequence[Band], index: dict[str, int],
     the kinds of an overlay; pairs that are not edges, such as forbidden ones, get class
     ``pair pair-forbidden`` and id ``{fig}-pair-{i}-{j}``)."""
     pos, width = _positions(bands)
+    rows = [(pos[b.members[0]][1], [(pos[n][0], node_width(n) / 2) for n in b.members])
+            for b in bands if b.members]
     kinds = sorted({e.kind for e in edges} | {k for k, _ in legend if k in STYLES})
     body_h = TOP + len(bands) * BAND_H + 10
     legend_svg, legend_h = _legend(fig, legend, body_h + 6, width)
@@ -179,7 +211,8 @@ def network_svg(fig: str, bands: Sequence[Band], index: dict[str, int],
         cls = "pair" if e.kind == "forbidden" else "edge"
         variant = f"diff-{e.kind}" if e.kind in DIFF_KINDS else f"{cls}-{e.kind}"
         ident = f"{fig}-{cls}-{index[e.source]}-{index[e.target]}"
-        path = _edge_path(pos[e.source], pos[e.target])
+        path = _edge_path(pos[e.source], pos[e.target],
+                          _waypoints(pos[e.source], pos[e.target], rows))
         out.append(f'<g class="{cls} {variant}" id="{ident}" data-from="{esc(e.source)}" '
                    f'data-to="{esc(e.target)}"><title>{esc(e.title)}</title>'
                    f'<path d="{path}" fill="none" stroke="{s.colour}" '

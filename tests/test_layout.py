@@ -39,3 +39,27 @@ def test_ticks_cover_the_range() -> None:
     ticks = nice_ticks(-144291.7, -132342.8)
     assert ticks[0] <= -144291.7 and ticks[-1] >= -132342.8
     assert ticks == [-145000.0, -140000.0, -135000.0, -130000.0]
+
+
+@settings(max_examples=60, deadline=None)
+@given(n=st.integers(2, 12), seed=st.integers(0, 2**16))
+def test_long_edges_pass_between_the_nodes_of_the_bands_they_cross(n: int, seed: int) -> None:
+    from runner.svg import _positions, _waypoints, node_width
+
+    rng = np.random.default_rng(seed)
+    names = [f"v{i}" + "x" * int(rng.integers(0, 8)) for i in range(n)]
+    parents = random_dag(n, rng)
+    edges = [[names[p], names[c]] for c, ps in enumerate(parents) for p in ps]
+    bands = layered(names, [], edges)
+    pos, _ = _positions(bands)
+    rows = [(pos[b.members[0]][1], [(pos[m][0], node_width(m) / 2) for m in b.members])
+            for b in bands]
+    for a, b in edges:
+        via = _waypoints(pos[a], pos[b], rows)
+        crossed = [r for r in rows if min(pos[a][1], pos[b][1]) < r[0] < max(pos[a][1],
+                                                                          pos[b][1])]
+        assert len(via) == len(crossed)  # one waypoint per band strictly between
+        for (x, y), (row_y, nodes) in zip(sorted(via, key=lambda p: p[1]), sorted(crossed),
+                                          strict=True):
+            assert y == row_y
+            assert all(abs(x - nx) >= hw for nx, hw in nodes)  # clear of every node box
