@@ -19,7 +19,7 @@ from typing import Any
 from runner import __version__, compare
 from runner.batch import run_specs
 from runner.engines import ENGINE_ENV, choose_engine, open_engine
-from runner.errors import InputError, Problem
+from runner.errors import EngineFailure, InputError, Problem
 from runner.export import FORMATS, export
 from runner.format import render_table, summary_lines
 from runner.pipeline import run_spec, validate
@@ -400,6 +400,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except InputError as exc:
         for problem in exc.problems:
             print(f"error: {problem.format()}", file=sys.stderr)
+        return 2
+    except EngineFailure as exc:
+        print(f"error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("interrupted; nothing half-written was kept", file=sys.stderr)

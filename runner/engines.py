@@ -34,7 +34,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
-from runner.errors import InputError, Problem
+from runner.errors import EngineFailure, InputError, Problem
 from runner.progress import Progress
 
 ENGINE_ENV = "DAGMILL_ENGINE"
@@ -194,6 +194,11 @@ class LocalPool(Engine):
                     results[futures[future]] = future.result()
                     if progress is not None:
                         progress.advance()
+            except cf.process.BrokenProcessPool as exc:
+                pool.shutdown(wait=False, cancel_futures=True)
+                raise EngineFailure(
+                    f"a worker process of the local pool died ({exc}); nothing was stored. "
+                    "Out of memory? Try fewer --workers") from None
             except BaseException:
                 pool.shutdown(wait=False, cancel_futures=True)
                 raise
@@ -247,7 +252,8 @@ class DaskEngine(Engine):
 
     def map(self, fn: Callable[[S, T], R], shared: S, items: Sequence[T],
             progress: Progress | None = None) -> list[R]:
-        from distributed import as_completed
+        from distributed import KilledWorker, as_completed
+        from distributed.comm.core import CommClosedError
 
         if not items:
             return []
@@ -260,6 +266,10 @@ class DaskEngine(Engine):
                 results[index[future.key]] = future.result()
                 if progress is not None:
                     progress.advance()
+        except (KilledWorker, CommClosedError, OSError) as exc:
+            raise EngineFailure(
+                f"the Dask cluster at {self.label} lost a unit of work ({type(exc).__name__}: "
+                f"{exc}); nothing was stored. Check the workers' logs and memory") from None
         finally:
             self.client.cancel(futures)
             self.client.cancel([handle])

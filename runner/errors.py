@@ -50,5 +50,11 @@ class InputError(Exception):
         super().__init__("\n".join(p.format() for p in self.problems))
 
 
+class EngineFailure(Exception):
+    """The execution engine lost work (a worker process died, the cluster went away):
+    reported in one line, exit 2, and nothing is stored, since runs are stored only
+    after every unit has come back."""
+
+
 class GateFailure(Exception):
     """A check or gate failed (exit 1): regression, non-determinism, missing baseline."""

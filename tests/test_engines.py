@@ -219,3 +219,33 @@ def test_dask_address_from_the_command_line(tmp_path: Path) -> None:
                          env={"DAGMILL_ENGINE": f"dask://{address}"})
     assert remote.returncode == 0, remote.stderr
     assert json.loads(remote.stdout)["runs"][0]["twin"]["identical"] is True
+
+
+def _die(_shared: object, _item: object) -> None:
+    """A unit of work whose worker process dies (as one killed for memory would)."""
+    os._exit(3)
+
+
+def test_a_dead_pool_worker_is_a_clean_engine_failure() -> None:
+    from runner.engines import LocalPool
+    from runner.errors import EngineFailure
+
+    with pytest.raises(EngineFailure, match="worker process of the local pool died"):
+        LocalPool(2, start_method="fork").map(_die, None, [1, 2, 3])
+
+
+@pytest.mark.slow
+def test_a_dead_dask_worker_is_a_clean_engine_failure() -> None:
+    # a real LocalCluster on 127.0.0.1; the scheduler gives up on a unit at its first
+    # killed worker (allowed-failures 0) instead of retrying it elsewhere
+    import dask
+    from distributed import Client, LocalCluster
+
+    from runner.engines import DaskEngine
+    from runner.errors import EngineFailure
+
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}), LocalCluster(
+            n_workers=1, threads_per_worker=1, processes=True, host="127.0.0.1",
+            dashboard_address=None) as cluster, Client(cluster) as client:
+        with pytest.raises(EngineFailure, match="lost a unit of work"):
+            DaskEngine.attach(client, "test-cluster").map(_die, None, [1])
