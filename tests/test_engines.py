@@ -36,8 +36,10 @@ def dagmill(*args: str, cwd: Path, env: dict[str, str] | None = None
 
 def comparable(record: dict[str, Any]) -> str:
     """A record's bytes without the fields that legitimately differ between two runs: the
-    creation time and the timings (the run id is not set before storing)."""
-    return dump_json({k: v for k, v in record.items() if k not in ("created_utc", "seconds")})
+    creation time, the timings and (for a stored record) the record's own hash, which
+    covers those two (the run id is not set before storing)."""
+    return dump_json({k: v for k, v in record.items()
+                      if k not in ("created_utc", "seconds", "record_sha256")})
 
 
 def free_port() -> int:
