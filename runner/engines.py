@@ -206,22 +206,22 @@ class LocalPool(Engine):
 
 
 class DaskEngine(Engine):
-    """Units as tasks on a Dask distributed cluster (a given scheduler, or a LocalCluster
-    started here and closed with the engine)."""
+    """Units as tasks on a Dask distributed cluster: a given scheduler (checked when the
+    engine opens), or a LocalCluster started at the first map of more than one unit (a
+    lone unit runs in this process) and closed with the engine."""
 
     parallel = True
 
     def __init__(self, choice: EngineChoice) -> None:
-        import logging
 
-        from distributed import Client, LocalCluster
+        from distributed import Client
 
         self._cluster = None
+        self._local_workers = 0
         if choice.kind == "dask-local":
-            self._cluster = LocalCluster(n_workers=choice.workers, threads_per_worker=1,
-                                         processes=True, host="127.0.0.1",
-                                         dashboard_address=None, silence_logs=logging.ERROR)
-            self.client = Client(self._cluster)
+            # started at the first map with more than one unit: none for a lone unit
+            self._local_workers = choice.workers
+            self.client = None
             self.label = f"dask-local ({choice.workers} workers)"
             return
         try:
@@ -257,6 +257,10 @@ class DaskEngine(Engine):
 
         if not items:
             return []
+        if self.client is None:  # dask-local, not started yet
+            if len(items) == 1:
+                return InProcess().map(fn, shared, items, progress)
+            self._start_local_cluster()
         handle = self.client.scatter(shared, broadcast=True, hash=False)
         futures = [self.client.submit(fn, handle, item, pure=False) for item in items]
         index = {f.key: k for k, f in enumerate(futures)}
@@ -275,9 +279,20 @@ class DaskEngine(Engine):
             self.client.cancel([handle])
         return results
 
+    def _start_local_cluster(self) -> None:
+        import logging
+
+        from distributed import Client, LocalCluster
+
+        self._cluster = LocalCluster(n_workers=self._local_workers, threads_per_worker=1,
+                                     processes=True, host="127.0.0.1",
+                                     dashboard_address=None, silence_logs=logging.ERROR)
+        self.client = Client(self._cluster)
+
     def close(self) -> None:
         if getattr(self, "_owned", True):
-            self.client.close()
+            if self.client is not None:
+                self.client.close()
             if self._cluster is not None:
                 self._cluster.close()
 

@@ -251,3 +251,15 @@ def test_a_dead_dask_worker_is_a_clean_engine_failure() -> None:
             dashboard_address=None) as cluster, Client(cluster) as client:
         with pytest.raises(EngineFailure, match="lost a unit of work"):
             DaskEngine.attach(client, "test-cluster").map(_die, None, [1])
+
+
+def _double(shared: int, item: int) -> int:
+    return shared * item
+
+
+def test_dask_local_starts_no_cluster_for_a_lone_unit() -> None:
+    from runner.engines import choose_engine, open_engine
+
+    with open_engine(choose_engine("dask-local", 2, environ={})) as engine:
+        assert engine.map(_double, 2, [21]) == [42]
+        assert engine._cluster is None  # type: ignore[attr-defined]
