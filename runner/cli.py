@@ -180,7 +180,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
             print(f"report: dagmill report {item['run_id']} --results {root}")
     if mismatch:
         print("NOT REPRODUCED: a run with the same inputs as an earlier one gave a different "
-              "graph or score (the new record is stored); see `dagmill show` of both runs",
+              "graph, score or bootstrap consensus (the new record is stored); see `dagmill "
+              "compare` of the two runs",
               file=sys.stderr)
         return 1
     return 0
