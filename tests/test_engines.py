@@ -171,19 +171,29 @@ def test_bad_bootstrap_in_any_spec_stores_nothing(tmp_path: Path) -> None:
         assert _no_runs(tmp_path)
 
 
-@pytest.mark.slow
-def test_dask_local_engine_from_the_command_line(tmp_path: Path) -> None:
+def in_process_run(tmp_path: Path) -> tuple[Path, str]:
+    """A bootstrap spec learned once in this process (``--workers 1``); its run id."""
     spec = write_case(tmp_path)
     spec.write_text(spec.read_text() + BOOT)
     local = dagmill("run", str(spec), "--workers", "1", "--json", "--results", "r",
                     cwd=tmp_path)
     assert local.returncode == 0, local.stderr
+    return spec, json.loads(local.stdout)["runs"][0]["run_id"]
+
+
+def assert_twin_of(done: subprocess.CompletedProcess[str], run_id: str) -> None:
+    """The run ``done`` stored is an identical twin of the in-process ``run_id``."""
+    assert done.returncode == 0, done.stderr
+    (run,) = json.loads(done.stdout)["runs"]
+    assert run["twin"] == {"run_id": run_id, "identical": True}
+
+
+@pytest.mark.slow
+def test_dask_local_engine_from_the_command_line(tmp_path: Path) -> None:
+    spec, run_id = in_process_run(tmp_path)
     clustered = dagmill("run", str(spec), "--engine", "dask-local", "--workers", "2",
                         "--json", "--results", "r", cwd=tmp_path)
-    assert clustered.returncode == 0, clustered.stderr
-    (run,) = json.loads(clustered.stdout)["runs"]
-    assert run["twin"] == {"run_id": json.loads(local.stdout)["runs"][0]["run_id"],
-                           "identical": True}
+    assert_twin_of(clustered, run_id)
     records = [json.loads(p.read_text()) for p in sorted(tmp_path.glob("r/*/runs/*/run.json"))]
     assert len(records) == 2
     assert comparable({**records[0], "run_id": None}) == comparable({**records[1],
@@ -209,18 +219,13 @@ def test_dask_scheduler_without_workers(tmp_path: Path) -> None:
 def test_dask_address_from_the_command_line(tmp_path: Path) -> None:
     from distributed import LocalCluster
 
-    spec = write_case(tmp_path)
-    spec.write_text(spec.read_text() + BOOT)
-    local = dagmill("run", str(spec), "--workers", "1", "--json", "--results", "r",
-                    cwd=tmp_path)
-    assert local.returncode == 0, local.stderr
+    spec, run_id = in_process_run(tmp_path)
     with LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1",
                       dashboard_address=None) as cluster:
         address = cluster.scheduler_address.removeprefix("tcp://")
         remote = dagmill("run", str(spec), "--json", "--results", "r", cwd=tmp_path,
                          env={"DAGMILL_ENGINE": f"dask://{address}"})
-    assert remote.returncode == 0, remote.stderr
-    assert json.loads(remote.stdout)["runs"][0]["twin"]["identical"] is True
+    assert_twin_of(remote, run_id)
 
 
 def _die(_shared: object, _item: object) -> None:
