@@ -222,17 +222,41 @@ def consensus_view(doc: Mapping[str, Any]) -> dict[str, Any] | None:
             "graph_sha256": found["graph_sha256"]}
 
 
+SHARES = ("directed", "class", "adjacent")
+
+
+def edge_confidence(record: Mapping[str, Any], share: str = "directed") -> dict[Edge, float]:
+    """Directed edge -> its ``share`` of bootstrap replicates; empty without bootstrap."""
+    if share not in SHARES:
+        raise ValueError(f"unknown share {share!r}; one of {', '.join(SHARES)}")
+    block = record.get("bootstrap")
+    if not isinstance(block, Mapping) or not isinstance(block.get("frequencies"), list):
+        return {}
+    out: dict[Edge, float] = {}
+    for item in block["frequencies"]:
+        if isinstance(item, Mapping) and isinstance(item.get(share), int | float):
+            a, b = item["edge"]
+            out[(str(a), str(b))] = float(item[share])
+    return dict(sorted(out.items()))
+
+
+def replicates(record: Mapping[str, Any]) -> int | None:
+    block = record.get("bootstrap")
+    if isinstance(block, Mapping) and isinstance(block.get("replicates"), int):
+        return int(block["replicates"])
+    return None
+
+
 def confidence_lines(record: Mapping[str, Any]) -> list[str]:
     """``show``: the run's edges and the consensus edges with their shares."""
     block = record.get("bootstrap")
     if not block:
         return []
-    share = {tuple(r["edge"]): r for r in block["frequencies"]}
+    shares = {s: edge_confidence(record, s) for s in SHARES}
 
     def line(a: str, b: str) -> str:
-        r = share.get((a, b), {"directed": 0.0, "class": 0.0, "adjacent": 0.0})
-        return (f"  {a} -> {b}".ljust(36) + f"directed {r['directed']:.3f}  "
-                f"class {r['class']:.3f}  adjacent {r['adjacent']:.3f}")
+        return f"  {a} -> {b}".ljust(36) + "  ".join(
+            f"{s} {shares[s].get((a, b), 0.0):.3f}" for s in SHARES)
 
     out = [f"bootstrap  {block['replicates']} replicates  seed {block['seed']}  threshold "
            f"{block['threshold']:g}  not converged {block['not_converged']}",

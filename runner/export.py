@@ -14,7 +14,7 @@ from typing import Any
 
 import networkx as nx
 
-from runner.confidence import edge_confidence
+from runner.bootstrap import edge_confidence
 
 FORMATS = ("graphml", "dot", "json")
 

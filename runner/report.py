@@ -16,8 +16,8 @@ from pathlib import Path
 from typing import Any
 
 from runner import __version__
+from runner.bootstrap import edge_confidence, replicates
 from runner.compare import compare_records
-from runner.confidence import edge_confidence, replicates
 from runner.layout import layered
 from runner.pipeline import CAUTION
 from runner.svg import INK, MUTED, PAPER, DrawnEdge, Series, esc, line_chart_svg, network_svg
