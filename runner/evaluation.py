@@ -27,6 +27,9 @@ import numpy as np
 from runner.fit import DiscreteFamily, fit_discrete, fit_gaussian, log_likelihood_rows
 from runner.scores.gaussian import LinearGaussianFamily
 
+SPLIT_RULE = ("seeded permutation (numpy SeedSequence(seed)); the first round(holdout * rows) "
+              "rows of it are held out")
+
 
 def split_rows(n_rows: int, holdout: float, seed: int) -> tuple[np.ndarray, np.ndarray]:
     """``(learn, held_out)`` sorted row indices; ``held_out`` has ``round(holdout * n)``

@@ -24,7 +24,7 @@ from runner.constraints import Constraints, build_constraints
 from runner.data import Dataset, load_dataset, loader_settings
 from runner.engines import Engine, InProcess
 from runner.errors import InputError, Problem
-from runner.evaluation import gaussian_held_out_fit, held_out_fit, split_rows
+from runner.evaluation import SPLIT_RULE, gaussian_held_out_fit, held_out_fit, split_rows
 from runner.fit import DEFAULT_PSEUDO_COUNT, fit_model
 from runner.graph import edges_from_parents, graph_sha256
 from runner.kinds import is_gaussian, make_scorer, resolve_columns, score_record
@@ -269,15 +269,19 @@ def run_search(
     return outcome, runs, parameters, {"proven_optimal": False}
 
 
+def spec_budget(spec: Spec) -> Budget:
+    """A fresh budget from the spec's ``search.budget``."""
+    b = spec.search.budget
+    return Budget(b.max_steps, b.max_evaluations, b.max_seconds)
+
+
 def search_on(prepared: Prepared, dataset: Dataset,
               rng: np.random.Generator) -> tuple[list[tuple[int, ...]], bool]:
     """The spec's score and search on ``dataset`` (the prepared columns, other rows: a
     bootstrap replicate); the learned parent sets and whether the search converged."""
     spec = prepared.spec
     scorer = make_scorer(normalised_spec(spec)["score"], dataset)
-    b = spec.search.budget
-    outcome, *_ = run_search(prepared, scorer, Budget(b.max_steps, b.max_evaluations,
-                                                      b.max_seconds), rng)
+    outcome, *_ = run_search(prepared, scorer, spec_budget(spec), rng)
     return [tuple(ps) for ps in outcome.parent_sets], outcome.converged
 
 
@@ -305,28 +309,31 @@ def learn_bootstrap(prepared: Prepared, engine: Engine | None = None,
                            prepared.constraints)
 
 
-def learning_part(prepared: Prepared) -> Prepared:
-    """The prepared spec on its learning rows: all rows, or those an ``evaluation``
-    section does not hold out."""
+def split_learning_rows(prepared: Prepared) -> tuple[Prepared, Dataset | None]:
+    """The prepared spec on its learning rows and the held-out rows: all rows and None
+    without an ``evaluation`` section."""
     evaluation = prepared.spec.evaluation
     if evaluation is None:
-        return prepared
-    learn_rows, _ = split_rows(prepared.dataset.rows, evaluation.holdout, evaluation.seed)
-    return replace(prepared, dataset=prepared.dataset.take_rows(learn_rows))
+        return prepared, None
+    learn_rows, held_rows = split_rows(prepared.dataset.rows, evaluation.holdout,
+                                       evaluation.seed)
+    return (replace(prepared, dataset=prepared.dataset.take_rows(learn_rows)),
+            prepared.dataset.take_rows(held_rows))
 
 
-def evaluation_block(prepared: Prepared, part: Prepared, parent_sets: Any, fitted: Any,
-                     gaussian: bool, pseudo_count: float) -> dict[str, Any]:
+def learning_part(prepared: Prepared) -> Prepared:
+    """The prepared spec on its learning rows (see :func:`split_learning_rows`)."""
+    return split_learning_rows(prepared)[0]
+
+
+def evaluation_block(prepared: Prepared, part: Prepared, held: Dataset, parent_sets: Any,
+                     fitted: Any, gaussian: bool, pseudo_count: float) -> dict[str, Any]:
     """The record's ``evaluation``: the split and the held-out fit of the learned graph
     and of the empty graph, both fitted on the learning rows ``part``."""
     ev, dataset = prepared.spec.evaluation, prepared.dataset
     assert ev is not None
-    _, held_rows = split_rows(dataset.rows, ev.holdout, ev.seed)
-    held = dataset.take_rows(held_rows)
     split = {"holdout": ev.holdout, "seed": ev.seed, "rows_learned": part.dataset.rows,
-             "rows_held_out": held.rows,
-             "rule": "seeded permutation (numpy SeedSequence(seed)); the first "
-                     "round(holdout * rows) rows of it are held out"}
+             "rows_held_out": held.rows, "rule": SPLIT_RULE}
     if gaussian:
         assert part.dataset.values is not None and held.values is not None
         return {**split, **gaussian_held_out_fit(part.dataset.values, held.values, fitted,
@@ -354,11 +361,10 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     inputs = input_sha256(spec_hash, dataset.sha256, version, prepared.bins_fingerprint)
 
     score_spec = normalised_spec(spec)["score"]
-    part = learning_part(prepared)
+    part, held = split_learning_rows(prepared)
     scorer = make_scorer(score_spec, part.dataset)
-    search = spec.search
-    b = search.budget
-    budget = Budget(b.max_steps, b.max_evaluations, b.max_seconds)
+    b = spec.search.budget
+    budget = spec_budget(spec)
     rng = np.random.default_rng(np.random.SeedSequence(effective_seed))
     try:
         bar = _search_bar(prepared, reporter)
@@ -443,11 +449,10 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
         "model": model_reference(model),
         "_model": model,
     }
-    if spec.evaluation is not None:
-        record["data"].update(rows_learned=part.dataset.rows,
-                              rows_held_out=dataset.rows - part.dataset.rows)
-        record["evaluation"] = evaluation_block(prepared, part, outcome.parent_sets, fitted,
-                                                gaussian, pseudo_count)
+    if held is not None:
+        record["data"].update(rows_learned=part.dataset.rows, rows_held_out=held.rows)
+        record["evaluation"] = evaluation_block(prepared, part, held, outcome.parent_sets,
+                                                fitted, gaussian, pseudo_count)
     if bootstrap is not None:
         record["bootstrap"] = bootstrap
         record["seconds"]["bootstrap"] = round(boot_seconds, 6)
