@@ -114,6 +114,11 @@ def held_out_summary(record: Mapping[str, Any]) -> dict[str, Any] | None:
     return ev  # type: ignore[return-value]
 
 
+def measure_name(ev: Mapping[str, Any]) -> str:
+    """What a held-out fit measures: a log density (linear-Gaussian) or a log-likelihood."""
+    return "log density" if "measure" in ev else "log-likelihood"
+
+
 def held_out_lines(record: Mapping[str, Any]) -> list[str]:
     """The ``show`` lines of a run's held-out fit (none without one)."""
     ev = held_out_summary(record)
@@ -123,12 +128,12 @@ def held_out_lines(record: Mapping[str, Any]) -> list[str]:
     lines = [
         f"held out   {ev['rows_held_out']} rows (holdout {ev['holdout']:g}, seed {ev['seed']}); "
         f"learned on {ev['rows_learned']}",
-        f"  log-likelihood per held-out row: learned {ll['learned_per_row']:.6f}  "
+        f"  {measure_name(ev)} per held-out row: learned {ll['learned_per_row']:.6f}  "
         f"empty graph {ll['empty_per_row']:.6f}  difference "
         f"{ll['difference_per_row']:+.6f}",
     ]
     if "measure" in ev:  # a density: no unseen cells
-        return [*lines[:-1], lines[-1].replace("log-likelihood", "log density")]
+        return lines
     return [*lines,
         f"  unseen in learning: {unseen['configurations']} parent configurations, "
         f"{unseen['states']} states (cells of held-out rows; from the pseudo-count)",

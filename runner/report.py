@@ -18,6 +18,7 @@ from typing import Any
 from runner import __version__
 from runner.bootstrap import edge_confidence, replicates
 from runner.compare import compare_records
+from runner.evaluation import measure_name
 from runner.layout import layered
 from runner.pipeline import CAUTION
 from runner.svg import INK, MUTED, PAPER, DrawnEdge, Series, esc, line_chart_svg, network_svg
@@ -151,7 +152,7 @@ def held_out_section(record: Mapping[str, Any]) -> str:
                 "(add <code>evaluation: {holdout: 0.2, seed: 5}</code> to the spec).</p>")
     ll, unseen = ev["log_likelihood"], ev["unseen"]
     body = (
-        "<table><tr><th></th><th>log-likelihood per held-out row</th><th>total</th></tr>"
+        f"<table><tr><th></th><th>{measure_name(ev)} per held-out row</th><th>total</th></tr>"
         f"<tr><th>learned graph</th><td class=\"num\">{ll['learned_per_row']:.6f}</td>"
         f"<td class=\"num\">{ll['learned']:.4f}</td></tr>"
         f"<tr><th>empty graph</th><td class=\"num\">{ll['empty_per_row']:.6f}</td>"
@@ -162,8 +163,7 @@ def held_out_section(record: Mapping[str, Any]) -> str:
         return (f"<h2>Held-out fit</h2><p class=\"note\">{ev['rows_held_out']} rows held out "
                 f"(share {ev['holdout']:g}, seed {ev['seed']}); linear-Gaussian families "
                 f"fitted on the other {ev['rows_learned']}. Mean log density per row "
-                f"(natural log); higher is better.</p>"
-                + body.replace("log-likelihood per held-out row", "log density per held-out row"))
+                f"(natural log); higher is better.</p>{body}")
     by_var = "".join(f"<li>{esc(n)}: {c['configurations']} configurations, {c['states']} "
                      "states</li>" for n, c in unseen.get("by_variable", {}).items())
     return (f"<h2>Held-out fit</h2><p class=\"note\">{ev['rows_held_out']} rows held out "
