@@ -24,6 +24,15 @@ class TraceRow:
     score: float
 
 
+@dataclass(frozen=True)
+class PhaseSummary:
+    """One phase of a search that runs in phases: its name, steps applied, score after."""
+
+    phase: str
+    steps: int
+    end_score: float
+
+
 @dataclass
 class SearchOutcome:
     parent_sets: list[tuple[int, ...]]
@@ -35,6 +44,7 @@ class SearchOutcome:
     converged: bool
     seconds: float
     trace: list[TraceRow] = field(default_factory=list)
+    phases: list[PhaseSummary] = field(default_factory=list)
 
 
 def outcome_from(engine: MoveEngine, budget: Budget, steps: int, trace: list[TraceRow],
