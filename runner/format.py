@@ -57,6 +57,9 @@ def summary_lines(record: dict[str, Any], folder: Path | None = None) -> list[st
         f"total {record['seconds']['total']:.3f}",
         f"graph hash {record['graph_sha256']}",
     ]
+    if search.get("phases"):
+        lines.append("phases     " + ", ".join(f"{p['phase']} {p['steps']}"
+                                               for p in search["phases"]))
     if folder is not None:
         lines.append(f"folder     {folder}")
     lines += continuous_lines(data.get("columns", {}))

@@ -42,6 +42,7 @@ from runner.search import (
     with_restarts,
 )
 from runner.search.exact import exact_plan, exact_search
+from runner.search.ges import greedy_equivalence_search
 from runner.search.order import order_plan, order_search
 from runner.search.parent_sets import SearchRefused
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
@@ -152,7 +153,9 @@ def search_refusal(prepared: Prepared) -> Problem | None:
     score is computed; None when it would run (or the method is a local one)."""
     search, names = prepared.spec.search, prepared.dataset.names
     try:
-        if search.method == "order":
+        if search.method == "ges":
+            ges_plan(prepared.spec.score.name)
+        elif search.method == "order":
             order_plan(prepared.constraints, total_order(prepared.spec, names), names,
                        search.max_candidate_sets)
         elif search.method == "exact":
@@ -162,6 +165,18 @@ def search_refusal(prepared: Prepared) -> Problem | None:
         return Problem(prepared.spec_display, refused.message,
                        line=prepared.spec.line_of(refused.key), key=refused.key)
     return None
+
+
+def ges_plan(score: str) -> None:
+    """Refuse equivalence-class search under a score that is not score-equivalent: its
+    operators score a class by any one member, which is sound only when every member
+    scores the same (Chickering 2002)."""
+    if score not in SCORE_EQUIVALENT:
+        raise SearchRefused("search.method", (
+            f"search method 'ges' moves between equivalence classes and needs a "
+            f"score-equivalent score, which '{score}' is not (equivalent DAGs can score "
+            f"differently under it); use one of {', '.join(sorted(SCORE_EQUIVALENT))}, or a "
+            f"DAG search such as 'hill-climb' or 'tabu' with '{score}'"))
 
 
 def total_order(spec: Spec, names: tuple[str, ...]) -> list[int]:
@@ -253,6 +268,12 @@ def run_search(
     start: list[list[int]] = [[] for _ in names]
     for i, j in sorted(constraints.required):
         start[j].append(i)
+    if search.method == "ges":
+        ges_plan(prepared.spec.score.name)
+        outcome = greedy_equivalence_search(scorer, constraints, budget, rng, start)
+        return outcome, [], parameters, {"proven_optimal": False, "phases": [
+            {"phase": p.phase, "steps": p.steps, "end_score": p.end_score}
+            for p in outcome.phases]}
     method = local_search(search.method, rng, sample=search.sample,
                           tabu_tenure=search.tabu_tenure, patience=search.patience)
     kick = search.kick or DEFAULT_KICK
@@ -289,7 +310,7 @@ def _search_bar(prepared: Prepared, reporter: Reporter) -> Progress | None:
     search, n = prepared.spec.search, len(prepared.dataset.names)
     if search.method == "exact":
         return reporter.bar(f"exact {prepared.spec.name}", 2 * n)
-    if search.method not in ("order",) and search.restarts:
+    if search.method not in ("order", "ges") and search.restarts:
         return reporter.bar(f"restarts {prepared.spec.name}", search.restarts + 1)
     return None
 

@@ -44,13 +44,16 @@ from pydantic import (
     StrictStr,
     ValidationError,
     WithJsonSchema,
+    model_validator,
 )
 
+from runner.catalog import default_method
 from runner.errors import InputError, Problem
 
 IMPLEMENTED_SCORES = ("loglik", "aic", "bic", "bdeu", "k2", "gaussian-loglik", "gaussian-bic",
                       "bge")
-IMPLEMENTED_METHODS = ("hill-climb", "first-ascent", "stochastic", "tabu", "order", "exact")
+IMPLEMENTED_METHODS = ("hill-climb", "first-ascent", "stochastic", "tabu", "ges", "order",
+                       "exact")
 IMPLEMENTED_KINDS = ("discrete", "continuous")
 OPTIONAL_SECTIONS = ("bootstrap", "fit", "evaluation")  # a broken one is dropped whole
 
@@ -181,8 +184,11 @@ class BudgetSpec(_Section):
 class SearchSpec(_Section):
     """How the space of graphs is searched."""
 
-    method: Literal["hill-climb", "first-ascent", "stochastic", "tabu", "order", "exact"] = (
-        Field("hill-climb", description="Search method."))
+    method: Literal["hill-climb", "first-ascent", "stochastic", "tabu", "ges", "order",
+                    "exact"] = Field("hill-climb", description=(
+                        "Search method; 'ges' (equivalence classes) needs a score-equivalent "
+                        "score. When absent: 'ges' for score-equivalent scores, 'hill-climb' "
+                        "for k2."))
     start: Literal["empty", "required"] = Field(
         "empty", description="Start graph: no edges, or the required edges.")
     seed: Count = Field(0, description="Random seed (ties, restarts, sampling).")
@@ -273,6 +279,18 @@ class Spec(_Section):
                                 "tables (pseudo_count 1.0 when absent).")
     evaluation: EvaluationSpec | None = Field(
         None, description="Held-out evaluation: rows kept out of learning, then scored.")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _default_method(cls, data: Any) -> Any:
+        """A spec that names no search method gets the score's default one."""
+        if not isinstance(data, dict):
+            return data
+        search, score = data.get("search"), data.get("score")
+        if search is not None and (not isinstance(search, dict) or "method" in search):
+            return data
+        name = score.get("name", "bic") if isinstance(score, dict) else "bic"
+        return {**data, "search": {**(search or {}), "method": default_method(str(name))}}
 
     _source_path: Path | None = PrivateAttr(default=None)
     _file: str | None = PrivateAttr(default=None)
@@ -850,13 +868,17 @@ def _repeated_states(base: str, states: list[str], where: _Where) -> list[Proble
     return problems
 
 
+_WHOLE_METHODS = ("ges", "order", "exact")  # searches that are not restarted
 _IGNORED_UNLESS: tuple[tuple[str, Callable[[SearchSpec], bool], str], ...] = (
     ("tabu_tenure", lambda s: s.method != "tabu", "only applies to search method 'tabu'"),
     ("patience", lambda s: s.method != "tabu", "only applies to search method 'tabu'"),
     ("sample", lambda s: s.method != "first-ascent",
      "only applies to search method 'first-ascent'"),
     ("order", lambda s: s.method != "order", "only applies to search method 'order'"),
-    ("kick", lambda s: s.restarts == 0, "only applies when restarts is above 0"),
+    ("kick", lambda s: s.restarts == 0 or s.method in _WHOLE_METHODS,
+     "only applies when restarts is above 0"),
+    ("restarts", lambda s: s.restarts > 0 and s.method in _WHOLE_METHODS,
+     "only applies to the local searches (hill-climb, first-ascent, stochastic, tabu)"),
     ("max_variables", lambda s: s.method != "exact", "only applies to search method 'exact'"),
     ("max_candidate_sets", lambda s: s.method not in ("order", "exact"),
      "only applies to search methods 'order' and 'exact'"),

@@ -118,7 +118,7 @@ def test_minimal_spec_fills_every_default(tmp_path: Path) -> None:
     data = normalised_spec(spec)
     assert data["score"] == {"alpha_mu": None, "alpha_w": None, "ess": 1.0, "name": "bic",
                              "prior_scale": None}
-    assert data["search"]["method"] == "hill-climb"
+    assert data["search"]["method"] == "ges"  # the default under a score-equivalent score
     assert data["search"]["budget"] == {"max_evaluations": None, "max_seconds": 600.0,
                                         "max_steps": 10000}
     assert data["gate"] == {"allow_new_states": False, "max_edge_changes": 0, "on": "run",
@@ -146,8 +146,8 @@ def test_implemented_lists() -> None:
     assert IMPLEMENTED_SCORES == ("loglik", "aic", "bic", "bdeu", "k2", "gaussian-loglik",
                                   "gaussian-bic", "bge")
     assert IMPLEMENTED_KINDS == ("discrete", "continuous")
-    assert IMPLEMENTED_METHODS == ("hill-climb", "first-ascent", "stochastic", "tabu", "order",
-                                   "exact")
+    assert IMPLEMENTED_METHODS == ("hill-climb", "first-ascent", "stochastic", "tabu", "ges",
+                                   "order", "exact")
 
 
 # --------------------------------------------------------------------------- the file itself
@@ -419,8 +419,17 @@ def test_parameters_the_method_ignores_are_warnings(tmp_path: Path, search: str,
 
 
 def test_kick_with_restarts_is_no_warning(tmp_path: Path) -> None:
-    spec = load_spec(write(tmp_path, BASE + "search:\n  restarts: 2\n  kick: 3\n"))
+    spec = load_spec(write(tmp_path, BASE + "search:\n  method: tabu\n  restarts: 2\n"
+                                            "  kick: 3\n"))
     assert spec.warnings == []
+
+
+def test_restarts_with_ges_is_a_warning(tmp_path: Path) -> None:
+    """A whole-graph search (here the default, ges) is not restarted: restarts and kick
+    are ignored, with a warning each."""
+    spec = load_spec(write(tmp_path, BASE + "search:\n  restarts: 2\n  kick: 3\n"))
+    assert spec.search.method == "ges"
+    assert sorted(w.key for w in spec.warnings) == ["search.kick", "search.restarts"]
 
 
 def test_defaults_are_not_warned_about(tmp_path: Path) -> None:

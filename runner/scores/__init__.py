@@ -15,6 +15,7 @@ from functools import partial
 
 import numpy as np
 
+from runner.catalog import SCORE_EQUIVALENT_SCORES
 from runner.scores.cache import FamilyScorer
 from runner.scores.dirichlet import bdeu_family, k2_family
 from runner.scores.gaussian import (
@@ -36,7 +37,7 @@ DISCRETE_SCORES: dict[str, FamilyScore] = {
     "k2": k2_family,
 }
 
-SCORE_EQUIVALENT = frozenset({"loglik", "aic", "bic", "bdeu", *GAUSSIAN_SCORES})
+SCORE_EQUIVALENT = SCORE_EQUIVALENT_SCORES
 
 
 def family_function(name: str, ess: float = 1.0) -> FamilyScore:

@@ -95,6 +95,7 @@ class ClassEngine:
         if constraints.n_vars != n:
             raise ValueError("constraints and data disagree on the number of variables")
         self.scorer = scorer
+        self.constraints = constraints
         self.n = n
         self.knowledge = Knowledge.from_matrices(constraints.allowed, constraints.required,
                                                  constraints.cap())
@@ -216,6 +217,14 @@ class ClassEngine:
         self.cpdag, self.dag = cpdag, member
         self.score += delta
         return True
+
+
+    def adopt(self, parent_sets: Sequence[Sequence[int]], delta: float) -> None:
+        """Move to the class of a DAG within the constraints whose score differs from
+        the current one by ``delta``; that DAG becomes the member held."""
+        self.dag = [mask_of(ps) for ps in parent_sets]
+        self.cpdag = cpdag_of_dag(self.dag)
+        self.score += delta
 
 
 @dataclass

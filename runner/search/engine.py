@@ -164,8 +164,9 @@ class MoveEngine:
         return bool(masks[move.kind][move.source, move.target])
 
     def best_move(self, exclude: Iterable[Move] = (),
-                  rng: np.random.Generator | None = None) -> tuple[Move, float] | None:
-        """The legal move with the largest delta, ``exclude`` aside.
+                  rng: np.random.Generator | None = None,
+                  kinds: Sequence[str] = KINDS) -> tuple[Move, float] | None:
+        """The legal move of one of ``kinds`` with the largest delta, ``exclude`` aside.
 
         Deltas within the tolerance of the largest count as tied: the score-equivalent
         pair X -> Y and Y -> X, say, differ only by rounding. Ties go to the first kind in
@@ -173,6 +174,9 @@ class MoveEngine:
         so the choice follows this rule and not the last bits of a sum.
         """
         tables = self.delta_tables()
+        for kind, table in zip(KINDS, tables, strict=True):
+            if kind not in kinds:
+                table.fill(-np.inf)
         for move in exclude:
             tables[KINDS.index(move.kind)][move.source, move.target] = -np.inf
         best = max(float(t.max()) if t.size else -np.inf for t in tables)

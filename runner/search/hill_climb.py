@@ -13,18 +13,20 @@ scores to refresh the one or two changed columns.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from functools import partial
 
 import numpy as np
 
 from runner.search.budget import Budget
-from runner.search.engine import Move, MoveEngine
+from runner.search.engine import KINDS, Move, MoveEngine
 from runner.search.result import SearchOutcome, climb
 
 
-def steepest_move(engine: MoveEngine, rng: np.random.Generator | None = None) -> Move | None:
-    """The best-improving legal move, or None when no move improves."""
-    choice = engine.best_move(rng=rng)
+def steepest_move(engine: MoveEngine, rng: np.random.Generator | None = None,
+                  kinds: Sequence[str] = KINDS) -> Move | None:
+    """The best-improving legal move of one of ``kinds``, or None when none improves."""
+    choice = engine.best_move(rng=rng, kinds=kinds)
     if choice is None or choice[1] <= engine.tolerance():
         return None
     return choice[0]
