@@ -42,7 +42,7 @@ def local_search(
         return partial(stochastic_hill_climb, rng=rng)
     if method == "tabu":
         return partial(tabu_search, tenure=tabu_tenure or DEFAULT_TENURE,
-                       patience=patience or DEFAULT_PATIENCE)
+                       patience=patience or DEFAULT_PATIENCE, rng=rng)
     raise ValueError(f"unknown local search {method!r}; known: {', '.join(LOCAL_METHODS)}")
 
 

@@ -232,8 +232,9 @@ class OperatorQueue:
     """The best operator of one kind for every ordered pair, in a heap by score change.
 
     Entries carry the pair's version; re-evaluating a pair makes its older entries stale.
-    Operators refused by the knowledge are remembered per pair until the pair is
-    evaluated again because of a change.
+    A pair whose best operator failed the path condition or was refused by the knowledge
+    is evaluated again with those checks and remembered (``rechecked``), since a later
+    change elsewhere can lift them: :meth:`revisit` evaluates such pairs afresh.
     """
 
     engine: ClassEngine
@@ -241,48 +242,66 @@ class OperatorQueue:
     heap: list[tuple[float, int, int, int, int]] = field(default_factory=list)
     version: dict[tuple[int, int], int] = field(default_factory=dict)
     refused: dict[tuple[int, int], set[int]] = field(default_factory=dict)
+    rechecked: set[tuple[int, int]] = field(default_factory=set)
 
     def __post_init__(self) -> None:
-        self.evaluate_all()
-
-    def evaluate_all(self) -> None:
-        self.heap.clear()
-        self.refused.clear()
+        tolerance = self.engine.tolerance()
         for y in range(self.engine.n):
-            for x in range(self.engine.n):
-                self.evaluate(x, y)
+            for x in self.sources(y):
+                self.evaluate(x, y, tolerance=tolerance)
 
-    def evaluate(self, x: int, y: int, check_paths: bool = False) -> None:
+    def sources(self, y: int) -> Iterator[int]:
+        """The nodes that can be the first argument of an operator into ``y``."""
+        if self.kind == INSERT:
+            return iter(range(self.engine.n))
+        g = self.engine.cpdag
+        return members(g.parents[y] | g.neighbours[y])
+
+    def evaluate(self, x: int, y: int, check_paths: bool = False,
+                 tolerance: float | None = None) -> None:
         """Queue the pair's best improving operator (ties: the smaller subset), skipping
         refused ones; with ``check_paths`` only a fully valid one."""
         pair = (x, y)
         version = self.version.get(pair, 0) + 1
         self.version[pair] = version
+        if tolerance is None:
+            tolerance = self.engine.tolerance()
         refused = self.refused.get(pair, ())
-        best: tuple[float, int] | None = None
-        tolerance = self.engine.tolerance()
-        for subset, delta in sorted(self.engine.choices(self.kind, x, y),
-                                    key=lambda c: (-c[1], c[0])):
-            if delta <= tolerance:
-                break
-            if subset in refused:
-                continue
-            if check_paths and not self.engine.is_valid(ClassMove(self.kind, x, y, subset)):
-                continue
-            best = (delta, subset)
-            break
-        if best is not None:
-            heapq.heappush(self.heap, (-best[0], x, y, best[1], version))
+        choices = [c for c in self.engine.choices(self.kind, x, y)
+                   if c[1] > tolerance and c[0] not in refused]
+        if len(choices) > 1:
+            choices.sort(key=lambda c: (-c[1], c[0]))
+        if check_paths:
+            self.rechecked.add(pair)
+            choices = [c for c in choices
+                       if self.engine.is_valid(ClassMove(self.kind, x, y, c[0]))][:1]
+        if choices:
+            subset, delta = choices[0]
+            heapq.heappush(self.heap, (-delta, x, y, subset, version))
 
     def refresh(self) -> None:
         """Evaluate again the pairs the last applied operator can have changed."""
-        n, targets, sources = self.engine.n, self.engine.changed_targets, \
-            self.engine.changed_sources
-        pairs = {(x, y) for y in members(targets) for x in range(n)}
-        pairs |= {(x, y) for x in members(sources) for y in range(n)}
+        engine = self.engine
+        pairs = {(x, y) for y in members(engine.changed_targets) for x in self.sources(y)}
+        for x in members(engine.changed_sources):
+            pairs |= {(x, y) for y in (range(engine.n) if self.kind == INSERT
+                                       else members(engine.cpdag.adjacent(x)))}
+        tolerance = engine.tolerance()
         for pair in sorted(pairs):
             self.refused.pop(pair, None)
-            self.evaluate(*pair)
+            self.rechecked.discard(pair)
+            self.evaluate(*pair, tolerance=tolerance)
+
+    def revisit(self) -> bool:
+        """Evaluate afresh the pairs last evaluated under the path and knowledge checks;
+        False when there are none."""
+        pairs = sorted(self.rechecked)
+        self.rechecked.clear()
+        self.refused.clear()
+        tolerance = self.engine.tolerance()
+        for pair in pairs:
+            self.evaluate(*pair, tolerance=tolerance)
+        return bool(pairs)
 
     def refuse(self, move: ClassMove) -> None:
         pair = (move.source, move.target)

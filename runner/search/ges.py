@@ -46,8 +46,9 @@ def greedy_phase(engine: ClassEngine, kind: str, budget: Budget, rng: np.random.
     """Apply the best valid operator of ``kind`` while one improves the score.
 
     Returns the steps applied and the budget's stop reason (None at a local optimum).
-    When the queue runs dry after a change, every pair is evaluated once more, so the
-    phase ends only where no operator of its kind improves.
+    When the queue runs dry after a change, the pairs set aside by the path condition or
+    the knowledge are evaluated once more, so the phase ends only where no operator of its
+    kind improves.
     """
     queue = OperatorQueue(engine, kind)
     fresh = True
@@ -58,9 +59,8 @@ def greedy_phase(engine: ClassEngine, kind: str, budget: Budget, rng: np.random.
             return applied, reason
         chosen = queue.pop(rng)
         if chosen is None:
-            if fresh:
+            if fresh or not queue.revisit():
                 return applied, None
-            queue.evaluate_all()
             fresh = True
             continue
         move, delta = chosen

@@ -1,22 +1,34 @@
 """Tabu search over DAGs (Glover 1989, "Tabu Search — Part I").
 
-Each step applies the best legal move that is not tabu, even when it lowers the score,
-so the search can walk out of a local optimum. A move is tabu while the move that
-undoes it (add <-> delete of the same edge; a reversal <-> the reversal back) was
-applied within the last ``tenure`` steps. Glover's aspiration criterion lifts the ban
-on a tabu move that would reach a score better than any seen so far. The best graph
-ever seen is kept and returned. The search stops after ``patience`` consecutive steps
-without a new best, when no legal move is left, or at the budget.
+Two phases. The first is the greedy climb itself: :func:`runner.search.hill_climb.
+hill_climb` with the run's seeded generator, so it draws from the generator exactly as
+``hill-climb`` with the same seed does and reaches the same local optimum. The escape
+phase then starts there. Each step applies the best legal move that is not tabu, even
+when it lowers the score, so the search can walk out of the local optimum. A move is
+tabu while the move that undoes it (add <-> delete of the same edge; a reversal <-> the
+reversal back) was applied within the last ``tenure`` steps. Glover's aspiration
+criterion lifts the ban on a tabu move that would reach a score better than any seen so
+far. Moves tied within the engine's tolerance are chosen among by the same generator.
+The best graph ever seen (the greedy optimum at least) is kept and returned, so the
+result never scores below ``hill-climb`` with the same seed and budget. The escape phase
+stops after ``patience`` consecutive steps without a new best or when no legal move is
+left; either phase stops at the budget, which both share (steps count across them).
 
-Complexity per step: that of one greedy step (O(n^2) selection, O(n) family scores).
+Complexity: the greedy phase as hill climbing; each escape step costs one greedy step
+(O(n^2) selection over the delta table, O(n) family scores to refresh the one or two
+changed columns), plus a second O(n^2) selection when the best move is tabu. The escape
+phase takes at most ``patience`` steps after the last new best.
 """
 
 from __future__ import annotations
 
 from collections import deque
 
+import numpy as np
+
 from runner.search.budget import Budget
 from runner.search.engine import Move, MoveEngine
+from runner.search.hill_climb import hill_climb
 from runner.search.result import SearchOutcome, TraceRow
 
 DEFAULT_TENURE = 10
@@ -38,12 +50,20 @@ def tabu_search(
     budget: Budget,
     tenure: int = DEFAULT_TENURE,
     patience: int = DEFAULT_PATIENCE,
+    rng: np.random.Generator | None = None,
 ) -> SearchOutcome:
-    """Tabu search from the engine's graph; returns the best graph seen."""
+    """Greedy climb, then tabu escape, from the engine's graph; returns the best graph seen.
+
+    With ``rng`` (the run's seeded generator) both phases break ties with it; without,
+    by the fixed rule (kind, then source, then target).
+    """
+    greedy = hill_climb(engine, budget, rng=rng)
+    if greedy.stop_reason != "local_optimum":  # the budget stopped the greedy phase
+        return greedy
     recent: deque[Move] = deque(maxlen=tenure)
-    trace: list[TraceRow] = []
-    best_score, best_graph = engine.score, engine.parent_sets()
-    steps = since_best = 0
+    trace: list[TraceRow] = list(greedy.trace)
+    best_score, best_graph = greedy.score, greedy.parent_sets
+    steps, since_best = greedy.steps, 0
     stop_reason = "patience"
     while since_best < patience:
         reason = budget.exhausted(steps, engine.scorer.evaluations)
@@ -51,12 +71,11 @@ def tabu_search(
             stop_reason = reason
             break
         tabu = {undo_of(m) for m in recent}
-        choice = engine.best_move(exclude=tabu)
-        aspirant = engine.best_move()
-        if aspirant is not None and aspirant[0] in tabu and (
-            engine.score + aspirant[1] > best_score + engine.tolerance()
-        ):
-            choice = aspirant
+        choice = engine.best_move(rng=rng)
+        if choice is not None and choice[0] in tabu and not (
+            engine.score + choice[1] > best_score + engine.tolerance()
+        ):  # the best move is tabu and does not aspire: the best non-tabu one instead
+            choice = engine.best_move(exclude=tabu, rng=rng)
         if choice is None:
             stop_reason = "no_legal_move"
             break
