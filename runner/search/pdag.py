@@ -244,6 +244,15 @@ class Knowledge:
     required_into: tuple[int, ...]
     cap: int
 
+    @property
+    def required_from(self) -> tuple[int, ...]:
+        """Per node ``v``, the nodes ``u`` for which ``v -> u`` is required."""
+        out = [0] * self.n
+        for u, mask in enumerate(self.required_into):
+            for v in members(mask):
+                out[v] |= bit(u)
+        return tuple(out)
+
     @classmethod
     def from_matrices(cls, allowed: np.ndarray, required: Iterable[tuple[int, int]],
                       cap: int) -> Knowledge:
@@ -274,17 +283,14 @@ class Knowledge:
         """``pdag`` with each undirected edge directed the only way the knowledge allows;
         None when a directed edge contradicts the knowledge or an edge has no direction
         left."""
-        n = pdag.n
         parents, children, neighbours = list(pdag.parents), list(pdag.children), list(
             pdag.neighbours)
-        for v in range(n):
-            not_into_v = self.forbidden_into[v]
-            if parents[v] & not_into_v or children[v] & self.required_into[v]:
+        required_from = self.required_from
+        for v in range(pdag.n):
+            if parents[v] & self.forbidden_into[v] or children[v] & self.required_into[v]:
                 return None
             # undirected u - v where u -> v is ruled out or v -> u is required: v -> u
-            outward = neighbours[v] & (not_into_v | mask_of(
-                u for u in members(neighbours[v]) if self.required_into[u] & bit(v)))
-            for u in members(outward):
+            for u in members(neighbours[v] & (self.forbidden_into[v] | required_from[v])):
                 if self.forbidden_into[u] & bit(v) or self.required_into[v] & bit(u):
                     return None
                 neighbours[v] &= ~bit(u)
