@@ -3,6 +3,10 @@
 Usage::
 
     python -m benchmarks [--cases alarm-10k,asia-10k] [--repeats 3] [--out benchmarks]
+    python -m benchmarks --quality [--networks asia,alarm] [--sample-seeds 13] ...
+
+``--quality`` runs the search-quality suite (:mod:`benchmarks.quality`) instead of the
+speed suite and writes ``RESULTS-quality.md`` and ``RESULTS-quality.json``.
 
 Data are sampled once per case with pgmpy's sampler and a fixed seed, cached as CSV
 under a temporary folder (never committed). Each case is timed ``--repeats`` times for
@@ -203,13 +207,20 @@ def machine_line() -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
+    from benchmarks import quality  # imports this module: load it only once it is complete
+
     parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__)
     parser.add_argument("--cases", default=DEFAULT_CASES)
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--out", default=str(Path(__file__).parent))
     parser.add_argument("--score-samples", type=int, default=len(SCORE_SAMPLE_SEEDS),
                         help="ALARM 10k samples for the score condition (0 skips it)")
+    parser.add_argument("--quality", action="store_true",
+                        help="run the search-quality suite instead of the speed suite")
+    quality.add_arguments(parser)
     args = parser.parse_args(argv)
+    if args.quality:
+        return quality.run(args)
     warnings.filterwarnings("ignore")
     rows = []
     for name in args.cases.split(","):
