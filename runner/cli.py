@@ -19,10 +19,11 @@ from typing import Any
 from runner import __version__, compare
 from runner.batch import run_specs
 from runner.engines import ENGINE_ENV, choose_engine, open_engine
+from runner.environment import environment_changes, environment_sentence
 from runner.errors import EngineFailure, InputError, Problem
 from runner.export import FORMATS, export
 from runner.format import render_table, summary_lines
-from runner.pipeline import run_spec, validate
+from runner.pipeline import RunResult, run_spec, validate
 from runner.progress import Reporter
 from runner.spec import load_spec, spec_json_schema
 from runner.store import (
@@ -150,7 +151,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
     root = results_root(args.results)
     if args.data is not None and len(args.specs) > 1:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
-    rows, out, mismatch = [], [], False
+    rows, out, mismatch = [], [], []
     choice = choose_engine(args.engine, args.workers)
     with open_engine(choice) as engine:
         results = run_specs(args.specs, root, engine, data_path=args.data, seed=args.seed,
@@ -161,7 +162,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
         twin = None
         if result.twin is not None:
             twin = {"run_id": result.twin["run_id"], "identical": result.twin_identical}
-            mismatch |= not result.twin_identical
+            if not result.twin_identical:
+                mismatch.append(result)
         rec = result.record
         out.append({"run_id": result.run_id, "folder": str(result.folder),
                     "score": rec["score"]["value"], "edges": len(rec["edges"]),
@@ -178,13 +180,22 @@ def _cmd_run(args: argparse.Namespace) -> int:
         for item in out:
             print(f"stored: {item['folder']}")
             print(f"report: dagmill report {item['run_id']} --results {root}")
-    if mismatch:
-        print("NOT REPRODUCED: a run with the same inputs as an earlier one gave a different "
-              "graph, score or bootstrap consensus (the new record is stored); see `dagmill "
-              "compare` of the two runs",
-              file=sys.stderr)
-        return 1
-    return 0
+    for result in mismatch:
+        print(_not_reproduced(result, root), file=sys.stderr)
+    return 1 if mismatch else 0
+
+
+def _not_reproduced(result: RunResult, root: Path) -> str:
+    """The message of a rerun that differs from its twin: what differs, whether the
+    numeric environment does (and how), and the compare command."""
+    assert result.twin is not None
+    twin, new = result.twin["run_id"], result.run_id
+    env = environment_changes(result.twin, result.record)
+    return (f"NOT REPRODUCED: {result.record['spec_name']}: run {new} has the same inputs as "
+            f"run {twin} but a different {' and '.join(result.twin_differences)} (the new "
+            f"record is stored)\n  "
+            f"{environment_sentence(env, results_differ=True, names=(twin, new))}"
+            f"\n  see: dagmill compare {twin} {new} --results {root}")
 
 
 def _cmd_show(args: argparse.Namespace) -> int:
@@ -262,9 +273,10 @@ def _cmd_check(args: argparse.Namespace) -> int:
             report = compare.missing_baseline_report(record, pin)
         else:
             pinned = root / record["spec_name"] / "runs" / baseline["run_id"]
-            if pinned.is_dir():
-                read_run(pinned)  # refuses a hand-edited baseline run (exit 2)
-            report = compare.evaluate_gate(baseline, record, record["spec"]["gate"])
+            # refuses a hand-edited baseline run (exit 2)
+            pinned_record = read_run(pinned) if pinned.is_dir() else None
+            report = compare.evaluate_gate(baseline, record, record["spec"]["gate"],
+                                           pinned_record)
         report["folder"] = str(result.folder)
         seconds[record["spec_name"]] = record["seconds"]["total"]
         reports.append(report)

@@ -18,6 +18,7 @@ from typing import Any
 
 from runner.bootstrap import consensus_view
 from runner.data import load_dataset, loader_settings
+from runner.environment import environment_changes, environment_sentence
 from runner.errors import InputError, Problem
 from runner.evaluation import held_out_comparison, held_out_comparison_lines, split_rows
 from runner.graph import (
@@ -299,6 +300,7 @@ def compare_records(a: Mapping[str, Any], b: Mapping[str, Any],
         "held_out": held_out_comparison(a, b),
         **graph_diff(a, b),
         "consensus": _consensus_diff(a, b),
+        "environment": environment_changes(a, b),
     }
 
 
@@ -315,7 +317,8 @@ def _consensus_diff(a: Mapping[str, Any], b: Mapping[str, Any]) -> dict[str, Any
 
 
 def evaluate_gate(baseline: Mapping[str, Any], record: Mapping[str, Any],
-                  gate: Mapping[str, Any]) -> dict[str, Any]:
+                  gate: Mapping[str, Any],
+                  baseline_record: Mapping[str, Any] | None = None) -> dict[str, Any]:
     """Hold a new run ``record`` against ``baseline`` under a spec's ``gate`` settings.
 
     Same input hash: graph hash and score must be identical (else non-determinism).
@@ -326,6 +329,9 @@ def evaluate_gate(baseline: Mapping[str, Any], record: Mapping[str, Any],
     With ``on: consensus`` the graphs held against each other (edge changes, the graph
     hash of the determinism check) are the bootstrap consensus networks; the score is
     still the single run's. A side without a consensus network fails the check.
+
+    ``baseline_record`` (the pinned run's record, when its folder is there) lets a
+    non-determinism failure note whether the numeric environment differs.
     """
     failures: list[str] = []
     notes: list[str] = []
@@ -358,6 +364,10 @@ def evaluate_gate(baseline: Mapping[str, Any], record: Mapping[str, Any],
                    and on == "consensus" else "graph"
                    if baseline["graph_sha256"] != record["graph_sha256"]
                    or run_hashes[0] != run_hashes[1] else "score"))
+            if baseline_record is not None:
+                notes.append(environment_sentence(
+                    environment_changes(baseline_record, record), results_differ=True,
+                    names=(str(baseline["run_id"]), str(record["run_id"]))))
     else:
         drop = -score["relative_per_row"]
         if not score["comparable"]:
@@ -492,6 +502,12 @@ def compare_lines(result: Mapping[str, Any]) -> list[str]:
                      f"{len(e['reversed'])} reversed (A -> B); SHD DAG {cons['shd_dag']} "
                      f"CPDAG {cons['shd_cpdag']}; verdict {cons['verdict']}")
         lines += ["  " + line for line in describe_edges(cons)]
+    env = result.get("environment")
+    if env is not None:
+        same_inputs = "input_sha256" not in result["inputs"]["differ"]
+        differ = result["verdict"] != "identical" or s["delta"] != 0 or (
+            cons is not None and cons["verdict"] != "identical")
+        lines.append(environment_sentence(env, same_inputs and differ))
     return lines
 
 

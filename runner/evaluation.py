@@ -15,16 +15,30 @@ Under a Gaussian score the held-out fit is the mean log density (natural log) pe
 held-out row under the linear-Gaussian families fitted on the learning rows, the empty
 graph's being each column's own normal with the learning rows' mean and ML variance.
 A density has no unseen cells; those counts are zero.
+
+The totals are correctly rounded sums (``math.fsum``) of the per-row values, which add
+the variables' terms element-wise in column order with logarithms by the scalar
+``runner.scores.elementary.ln``: the stored numbers depend neither on the machine (no BLAS, no numpy
+reduction or vectorised logarithm) nor on the order of the held-out rows.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 
-from runner.fit import DiscreteFamily, fit_discrete, fit_gaussian, log_likelihood_rows
+from runner.fit import (
+    DiscreteFamily,
+    fit_discrete,
+    fit_gaussian,
+    log_likelihood_rows,
+    log_likelihood_total,
+)
+from runner.scores.elementary import ln_scalar
+from runner.scores.fixed_order import sum_floats
 from runner.scores.gaussian import LinearGaussianFamily
 
 SPLIT_RULE = ("seeded permutation (numpy SeedSequence(seed)); the first round(holdout * rows) "
@@ -50,7 +64,7 @@ def held_out_fit(learn_codes: np.ndarray, held_codes: np.ndarray, arities: np.nd
     learned, unseen = log_likelihood_rows(families, held_codes, pseudo_count)
     empty_fams = fit_discrete(learn_codes, arities, [() for _ in range(len(arities))])
     empty, empty_unseen = log_likelihood_rows(empty_fams, held_codes, pseudo_count)
-    learned_total, empty_total = float(learned.sum()), float(empty.sum())
+    learned_total, empty_total = log_likelihood_total(learned), log_likelihood_total(empty)
     per_row = learned_total / rows if rows else 0.0
     empty_per_row = empty_total / rows if rows else 0.0
     return {
@@ -72,14 +86,19 @@ def held_out_fit(learn_codes: np.ndarray, held_codes: np.ndarray, arities: np.nd
 def gaussian_log_density_rows(families: Sequence[LinearGaussianFamily],
                               parent_sets: Sequence[Sequence[int]],
                               values: np.ndarray) -> np.ndarray:
-    """Per row, the sum over variables of ln N(x_c; intercept + beta . x_parents, var)."""
+    """Per row, the sum over variables of ln N(x_c; intercept + beta . x_parents, var).
+
+    Element-wise arithmetic in a fixed order (the mean adds the parents' terms in the
+    family's order, the row adds the variables in column order) and the one logarithm of
+    each family, ln(2 pi var), by our scalar ``ln_scalar``: the same bits on every machine."""
     total = np.zeros(values.shape[1])
     for child, (fam, parents) in enumerate(zip(families, parent_sets, strict=True)):
         mean = np.full(values.shape[1], fam.intercept)
         for p, b in zip(parents, fam.coefficients, strict=True):
             mean += b * values[p]
         resid = values[child] - mean
-        total += -0.5 * (np.log(2.0 * np.pi * fam.variance) + resid * resid / fam.variance)
+        total += -0.5 * (ln_scalar(2.0 * math.pi * fam.variance)
+                         + resid * resid / fam.variance)
     return total
 
 
@@ -89,9 +108,9 @@ def gaussian_held_out_fit(learn_values: np.ndarray, held_values: np.ndarray,
     """The record's ``evaluation`` blocks for a linear-Gaussian network."""
     rows = held_values.shape[1]
     empty_sets: list[tuple[int, ...]] = [() for _ in range(held_values.shape[0])]
-    learned = float(gaussian_log_density_rows(families, parent_sets, held_values).sum())
-    empty = float(gaussian_log_density_rows(fit_gaussian(learn_values, empty_sets),
-                                            empty_sets, held_values).sum())
+    learned = sum_floats(gaussian_log_density_rows(families, parent_sets, held_values))
+    empty = sum_floats(gaussian_log_density_rows(fit_gaussian(learn_values, empty_sets),
+                                                 empty_sets, held_values))
     per_row, empty_per_row = (learned / rows, empty / rows) if rows else (0.0, 0.0)
     return {
         "measure": "log density (linear-Gaussian)",

@@ -20,10 +20,19 @@ least-squares intercept and coefficients on its parents and its maximum-likeliho
 residual variance RSS / N, from the learning rows' means and scatter matrix
 (:func:`runner.scores.gaussian.linear_gaussian_parameters`); the child given its parents
 is then N(intercept + sum_p beta_p x_p, variance).
+
+Every float that reaches ``model.json`` or ``run.json`` is the same on every machine:
+probabilities are (N_jk + a) / (N_j + r a) with an exact integer N_j; the
+linear-Gaussian parameters come from exact sufficient statistics and a fixed-order
+factorization (:mod:`runner.scores.fixed_order`); logarithms are
+:func:`runner.scores.elementary.ln` (not the C library's ``log``), and totals over rows
+are correctly rounded (``math.fsum``), so they do not depend on the order of the rows
+either.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -32,6 +41,8 @@ import numpy as np
 
 from runner.data import Dataset
 from runner.scores.counts import COMPACT_ABOVE, configuration_codes
+from runner.scores.elementary import ln, ln_scalar
+from runner.scores.fixed_order import sum_floats
 from runner.scores.gaussian import (
     LinearGaussianFamily,
     linear_gaussian_parameters,
@@ -61,9 +72,24 @@ class DiscreteFamily:
     counts: np.ndarray
 
     def probabilities(self, pseudo_count: float) -> np.ndarray:
-        """theta_jk = (N_jk + a) / (N_j + r a) for every occurring configuration."""
+        """theta_jk = (N_jk + a) / (N_j + r a) for every occurring configuration.
+
+        N_j is an integer sum (exact), so each probability is a fixed sequence of scalar
+        roundings, N_jk + a, r a, N_j + r a and the quotient: the same bits on every
+        machine (no floating-point reduction)."""
         numerator = self.counts + pseudo_count
-        return numerator / numerator.sum(axis=1, keepdims=True)
+        totals = self.counts.sum(axis=1, keepdims=True) + self.arity * pseudo_count
+        return numerator / totals
+
+    def log_probabilities(self, pseudo_count: float) -> np.ndarray:
+        """ln theta_jk by :func:`runner.scores.elementary.ln` (the same bits on every
+        machine, unlike numpy's vectorised log or the C library's); -inf where
+        theta_jk = 0."""
+        probabilities = self.probabilities(pseudo_count)
+        positive = probabilities > 0
+        out = np.full(probabilities.shape, -math.inf)
+        out[positive] = ln(probabilities[positive])
+        return out
 
 
 def _codes_of(codes: np.ndarray, arities: np.ndarray, parents: Sequence[int]) -> np.ndarray:
@@ -168,6 +194,10 @@ def log_likelihood_rows(families: Sequence[DiscreteFamily], codes: np.ndarray,
     never occurred in learning (probability 1/r), and cells whose child state had count 0
     in its configuration. Both get their probability from the pseudo-count alone, so
     ``pseudo_count`` must be above 0 when they occur (else the result is -inf).
+
+    Each cell's logarithm is our ``ln`` of its table entry (computed once per entry,
+    :meth:`DiscreteFamily.log_probabilities`), and a row's total adds the variables'
+    terms in column order, element-wise: the same bits on every machine.
     """
     n_rows = codes.shape[1]
     total = np.zeros(n_rows)
@@ -177,21 +207,25 @@ def log_likelihood_rows(families: Sequence[DiscreteFamily], codes: np.ndarray,
         child = codes[fam.child].astype(np.int64)
         index = configuration_index(fam, codes)
         seen = index >= 0
-        p = np.full(n_rows, 1.0 / fam.arity)
+        log_p = np.full(n_rows, ln_scalar(1.0 / fam.arity))
         zero_state = np.zeros(n_rows, dtype=bool)
         if fam.configs.size:
-            probs = fam.probabilities(pseudo_count)
-            p[seen] = probs[index[seen], child[seen]]
+            log_p[seen] = fam.log_probabilities(pseudo_count)[index[seen], child[seen]]
             zero_state[seen] = fam.counts[index[seen], child[seen]] == 0
         n_configs, n_states = int((~seen).sum()), int(zero_state.sum())
         unseen_configs += n_configs
         unseen_states += n_states
         if n_configs or n_states:
             per_variable[fam.child] = {"configurations": n_configs, "states": n_states}
-        with np.errstate(divide="ignore"):
-            total += np.log(p)
+        total += log_p
     return total, {"configurations": unseen_configs, "states": unseen_states,
                    "by_variable": per_variable}
+
+
+def log_likelihood_total(rows: np.ndarray) -> float:
+    """The sum of per-row log-likelihoods, correctly rounded (``math.fsum``): the same for
+    any order of the rows; -inf when a row is."""
+    return sum_floats(rows)
 
 
 def model_document(families: Sequence[DiscreteFamily], names: Sequence[str],

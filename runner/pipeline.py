@@ -6,23 +6,20 @@ The command line calls these functions and only formats what they return.
 from __future__ import annotations
 
 import hashlib
-import platform
 import time
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-import networkx
 import numpy as np
-import pandas
-import pydantic
 
 from runner.bootstrap import ReplicateJob, bootstrap_block, replicate_seeds, run_replicate
 from runner.codeversion import code_sha256, code_version
 from runner.constraints import Constraints, build_constraints
 from runner.data import Dataset, load_dataset, loader_settings
 from runner.engines import Engine, InProcess
+from runner.environment import environment
 from runner.errors import InputError, Problem
 from runner.evaluation import SPLIT_RULE, gaussian_held_out_fit, held_out_fit, split_rows
 from runner.fit import DEFAULT_PSEUDO_COUNT, fit_model
@@ -207,17 +204,6 @@ def input_sha256(spec_hash: str, data_hash: str, version: str, bins: str | None 
     return hashlib.sha256(text.encode()).hexdigest()
 
 
-def environment() -> dict[str, str]:
-    return {
-        "python": platform.python_version(),
-        "numpy": np.__version__,
-        "pandas": pandas.__version__,
-        "pydantic": pydantic.__version__,
-        "networkx": networkx.__version__,
-        "platform": platform.platform(),
-    }
-
-
 @dataclass
 class RunResult:
     run_id: str
@@ -230,9 +216,19 @@ class RunResult:
     def twin_identical(self) -> bool | None:
         if self.twin is None:
             return None
-        return (self.twin["graph_sha256"] == self.record["graph_sha256"]
-                and self.twin["score"]["value"] == self.record["score"]["value"]
-                and _consensus_hash(self.twin) == _consensus_hash(self.record))
+        return not self.twin_differences
+
+    @property
+    def twin_differences(self) -> list[str]:
+        """What differs from the earlier run with the same inputs: ``graph``, ``score``,
+        ``bootstrap consensus`` (empty without a twin or when it is reproduced)."""
+        if self.twin is None:
+            return []
+        a, b = self.twin, self.record
+        return [what for what, same in (
+            ("graph", a["graph_sha256"] == b["graph_sha256"]),
+            ("score", a["score"]["value"] == b["score"]["value"]),
+            ("bootstrap consensus", _consensus_hash(a) == _consensus_hash(b))) if not same]
 
 
 def _consensus_hash(record: dict[str, Any]) -> str | None:

@@ -13,41 +13,41 @@ with lnG the log-gamma function.
   where ess is the equivalent sample size. Score-equivalent.
 
 A parent configuration that never occurs (N_ij = 0) contributes exactly zero, so only
-the occurring configurations are summed.
+the occurring configurations are summed; so does a cell with N_ijk = 0.
+
+The values are a deterministic function of the counts, the same bits on every machine:
+both sums come from fixed-point tables of lnG(a + k) - lnG(a), one per hyperparameter
+a (:func:`runner.scores.tables.rising_log_table`, our own log-gamma), summed exactly in
+integers, and the family score is rounded to a float once.
 """
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
-from numpy.typing import NDArray
 
-_lgamma_ufunc = np.frompyfunc(math.lgamma, 1, 1)
-
-
-def log_gamma(values: NDArray[np.float64] | float) -> NDArray[np.float64]:
-    """Element-wise ln Gamma by the C library's ``lgamma`` (one implementation everywhere,
-    so scores are bit-identical whether or not scipy is installed)."""
-    return np.asarray(_lgamma_ufunc(values), dtype=np.float64)
+from runner.scores.tables import rising_log_table, to_float
 
 
-def dirichlet_family(table: np.ndarray, a_jk: float) -> float:
-    """Log marginal likelihood of a family with one hyperparameter a_jk for every cell."""
-    r = table.shape[1]
-    a_j = a_jk * r
-    n_j = table.sum(axis=1).astype(np.float64)
-    cells = table.astype(np.float64)
-    config_part = np.sum(log_gamma(a_j) - log_gamma(a_j + n_j))
-    cell_part = np.sum(log_gamma(a_jk + cells)) - cells.size * float(log_gamma(a_jk))
-    return float(config_part + cell_part)
+def dirichlet_family(table: np.ndarray, a_jk: float, a_j: float, n_rows: int) -> float:
+    """Log marginal likelihood of a family with hyperparameter ``a_jk`` in every cell and
+    ``a_j`` (= r a_jk) per configuration, over ``n_rows`` rows."""
+    rows = table.sum(axis=1)
+    top = int(rows.max()) if rows.size else 0
+    cell_table = rising_log_table(a_jk, n_rows)
+    row_table = rising_log_table(a_j, n_rows)
+    cells = cell_table.sum(table, top)
+    configurations = row_table.sum(rows, top)
+    bits = max(cell_table.bits, row_table.bits)
+    total = (cells << (bits - cell_table.bits)) - (configurations << (bits - row_table.bits))
+    return to_float(total, bits)
 
 
 def bdeu_family(table: np.ndarray, q: int, n_rows: int, ess: float = 1.0) -> float:
-    """BDeu family score: Dirichlet hyperparameters ess / (q r) in every cell."""
-    return dirichlet_family(table, ess / (q * table.shape[1]))
+    """BDeu family score: Dirichlet hyperparameters ess / (q r) in every cell, so ess / q
+    per parent configuration."""
+    return dirichlet_family(table, ess / (q * table.shape[1]), ess / q, n_rows)
 
 
 def k2_family(table: np.ndarray, q: int, n_rows: int) -> float:
     """K2 family score: Dirichlet hyperparameter 1 in every cell (Cooper & Herskovits 1992)."""
-    return dirichlet_family(table, 1.0)
+    return dirichlet_family(table, 1.0, float(table.shape[1]), n_rows)

@@ -11,24 +11,29 @@ N is the number of rows and (r_i - 1) * q_i the number of free parameters of the
 family's conditional probability table; q_i counts every configuration, occurring or
 not. All three decompose over families, and all three are score-equivalent: Markov
 equivalent DAGs get the same total (Chickering 1995). Natural logarithms throughout.
+
+The values are a deterministic function of the counts, the same bits on every machine:
+LL is computed as sum_jk N_jk ln N_jk - sum_j N_j ln N_j from the fixed-point table of
+k ln k (:func:`runner.scores.tables.xlogx_table`), summed exactly in integers and
+rounded to a float once; ln N is :func:`runner.scores.tables.ln_scalar`, and each
+penalty is one float operation on those values.
 """
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
+from runner.scores.elementary import ln_scalar
+from runner.scores.tables import to_float, xlogx_table
 
-def log_likelihood(table: np.ndarray) -> float:
-    """Maximised log-likelihood of a family's count table (rows: configurations).
 
-    Computed as sum_jk N_jk ln N_jk - sum_j N_j ln N_j, over non-zero counts only.
-    """
-    cells = table[table > 0].astype(np.float64)
-    rows = table.sum(axis=1).astype(np.float64)
-    rows = rows[rows > 0]
-    return float(np.dot(cells, np.log(cells)) - np.dot(rows, np.log(rows)))
+def log_likelihood(table: np.ndarray, n_rows: int) -> float:
+    """Maximised log-likelihood of a family's count table (rows: configurations) over
+    ``n_rows`` rows: sum_jk N_jk ln N_jk - sum_j N_j ln N_j, exactly summed."""
+    rows = table.sum(axis=1)
+    top = int(rows.max()) if rows.size else 0
+    xlogx = xlogx_table(n_rows)
+    return to_float(xlogx.sum(table, top) - xlogx.sum(rows, top), xlogx.bits)
 
 
 def free_parameters(q: int, r: int) -> int:
@@ -38,14 +43,15 @@ def free_parameters(q: int, r: int) -> int:
 
 def loglik_family(table: np.ndarray, q: int, n_rows: int) -> float:
     """Family log-likelihood, no penalty (always prefers more parents)."""
-    return log_likelihood(table)
+    return log_likelihood(table, n_rows)
 
 
 def aic_family(table: np.ndarray, q: int, n_rows: int) -> float:
     """Family AIC: log-likelihood minus the number of free parameters (Akaike 1974)."""
-    return log_likelihood(table) - free_parameters(q, table.shape[1])
+    return log_likelihood(table, n_rows) - free_parameters(q, table.shape[1])
 
 
 def bic_family(table: np.ndarray, q: int, n_rows: int) -> float:
     """Family BIC: log-likelihood minus (ln N / 2) per free parameter (Schwarz 1978)."""
-    return log_likelihood(table) - 0.5 * math.log(n_rows) * free_parameters(q, table.shape[1])
+    return log_likelihood(table, n_rows) - 0.5 * ln_scalar(n_rows) * free_parameters(
+        q, table.shape[1])

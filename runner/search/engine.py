@@ -17,10 +17,21 @@ or more edges) is kept up to date: adding i -> j makes a cycle exactly when
 ``reach[j, i]``; reversing i -> j makes one exactly when i reaches j by a path other
 than the edge itself. An addition updates the matrix by one outer product, O(n^2); a
 deletion recomputes it in topological order, O(n (n + e)) with vectorised rows.
+
+Ties. A search compares only these values: the deltas in ``toggle`` (one subtraction of
+two family scores each; a reversal's delta adds two of them), and the tolerance
+``RELATIVE_TOLERANCE * max(1, |score|)``, where ``score`` is the exactly rounded sum of
+the family scores (``math.fsum``). A move improves when its delta exceeds the
+tolerance; moves whose deltas are within the tolerance of the best are tied, and the
+tie goes to the run's seeded generator or, without one, to the first kind in ``KINDS``,
+then the lowest source, then the lowest target. The discrete family scores are the
+same bits on every machine (:mod:`runner.scores.tables`), and so are these values and
+every tie decision made from them.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
@@ -88,7 +99,9 @@ class MoveEngine:
 
     @property
     def score(self) -> float:
-        return float(np.sum(self.family))
+        """The DAG's score: the exactly rounded sum of the family scores (``math.fsum``),
+        the same bits whatever the order of the additions."""
+        return math.fsum(self.family.tolist())
 
     def tolerance(self) -> float:
         return RELATIVE_TOLERANCE * max(1.0, abs(self.score))

@@ -10,6 +10,7 @@ Complexity per step: O(n^2) to collect the improving moves from the delta table.
 
 from __future__ import annotations
 
+import math
 from functools import partial
 
 import numpy as np
@@ -25,8 +26,15 @@ def weighted_improving_move(engine: MoveEngine, rng: np.random.Generator) -> Mov
     improving = [(m, d) for m, d in engine.legal_moves() if d > tolerance]
     if not improving:
         return None
-    gains = np.array([d for _, d in improving])
-    return improving[int(rng.choice(len(improving), p=gains / gains.sum()))][0]
+    # Inverse transform with one uniform draw, accumulated left to right in plain floats:
+    # no numpy reduction (whose order follows the CPU's SIMD width) decides the move.
+    threshold = float(rng.random()) * math.fsum(d for _, d in improving)
+    running = 0.0
+    for move, gain in improving:
+        running += gain
+        if running > threshold:
+            return move
+    return improving[-1][0]
 
 
 def stochastic_hill_climb(
