@@ -17,6 +17,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from runner.graph import topological_order
+
 
 def bit(v: int) -> int:
     return 1 << v
@@ -90,27 +92,6 @@ def dag_as_pdag(parent_masks: Sequence[int]) -> Pdag:
     return Pdag(tuple(parent_masks), tuple(children), (0,) * n)
 
 
-def topological_order(parent_masks: Sequence[int]) -> list[int] | None:
-    """Kahn's (1962) order of a DAG, smallest ready index first; None when cyclic. O(V + E)."""
-    n = len(parent_masks)
-    children: list[list[int]] = [[] for _ in range(n)]
-    indegree = [m.bit_count() for m in parent_masks]
-    for c, mask in enumerate(parent_masks):
-        for p in members(mask):
-            children[p].append(c)
-    ready = [v for v in range(n) if indegree[v] == 0]
-    heapq.heapify(ready)
-    order: list[int] = []
-    while ready:
-        v = heapq.heappop(ready)
-        order.append(v)
-        for c in children[v]:
-            indegree[c] -= 1
-            if indegree[c] == 0:
-                heapq.heappush(ready, c)
-    return order if len(order) == n else None
-
-
 def cpdag_of_dag(parent_masks: Sequence[int]) -> Pdag:
     """The CPDAG of a DAG: compelled edges directed, reversible ones undirected.
 
@@ -120,7 +101,7 @@ def cpdag_of_dag(parent_masks: Sequence[int]) -> Pdag:
     to first; O(E * max in-degree) after the O(V + E) topological sort.
     """
     n = len(parent_masks)
-    order = topological_order(parent_masks)
+    order = topological_order([list(members(m)) for m in parent_masks])
     if order is None:
         raise ValueError("not a DAG: the parent sets form a cycle")
     position = [0] * n
