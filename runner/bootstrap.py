@@ -149,7 +149,7 @@ def consensus(names: Sequence[str], frequencies: Sequence[Mapping[str, Any]], re
     pairs: dict[tuple[str, str], float] = {}
     for (a, b), row in share.items():
         if row["adjacent"] >= threshold - 1e-12 or (a, b) in required:
-            pairs[tuple(sorted((a, b)))] = row["adjacent"]  # type: ignore[index]
+            pairs[(min(a, b), max(a, b))] = row["adjacent"]
 
     def directed(e: Edge) -> float:
         return share[e]["directed"] if e in share else 0.0

@@ -214,7 +214,7 @@ def _cmd_compare(args: argparse.Namespace) -> int:
     if a["spec_name"] != b["spec_name"]:
         print(f"warning: comparing runs of two different specs ({a['spec_name']!r} and "
               f"{b['spec_name']!r}); inputs and scores may not be comparable", file=sys.stderr)
-    rescored = None
+    rescored: dict[str, Any] | None = None
     if compare.needs_rescore(a, b) or (args.data is not None
                                        and not compare.score_delta(a, b)["comparable"]):
         try:
@@ -306,7 +306,7 @@ def _cmd_history(args: argparse.Namespace) -> int:
     if not folders:
         raise InputError(Problem(str(root), f"no stored runs of spec {name!r}", key="SPEC"))
     baseline = read_baseline(root, name)
-    records = []
+    records: list[dict[str, Any] | None] = []
     for folder in folders:
         try:
             records.append(read_run(folder))

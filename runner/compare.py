@@ -235,7 +235,7 @@ def rescore(record: Mapping[str, Any], score_name: str, ess: float = 1.0,
     score was.
     """
     explicit = data_path is not None
-    path = Path(data_path) if explicit else record_data_file(record)
+    path = Path(data_path) if data_path is not None else record_data_file(record)
     spec_dataset = _get(record, ("spec", "dataset")) or {}
     dataset = load_dataset(path, display_path=str(path), **loader_settings(spec_dataset))
     if not explicit and dataset.sha256 != record["data"]["sha256"]:

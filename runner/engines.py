@@ -32,10 +32,13 @@ import re
 import threading
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any, TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
 from runner.errors import EngineFailure, InputError, Problem
 from runner.progress import Progress
+
+if TYPE_CHECKING:  # Dask is an optional extra, imported where it is used
+    from distributed import Client, LocalCluster
 
 ENGINE_ENV = "DAGMILL_ENGINE"
 CONNECT_SECONDS = 3.0
@@ -211,6 +214,9 @@ class DaskEngine(Engine):
     lone unit runs in this process) and closed with the engine."""
 
     parallel = True
+    client: Client | None
+    _cluster: LocalCluster | None
+    _owned = True  # False for an attached client, which its owner closes
 
     def __init__(self, choice: EngineChoice) -> None:
 
@@ -257,12 +263,13 @@ class DaskEngine(Engine):
 
         if not items:
             return []
-        if self.client is None:  # dask-local, not started yet
+        client = self.client
+        if client is None:  # dask-local, not started yet
             if len(items) == 1:
                 return InProcess().map(fn, shared, items, progress)
-            self._start_local_cluster()
-        handle = self.client.scatter(shared, broadcast=True, hash=False)
-        futures = [self.client.submit(fn, handle, item, pure=False) for item in items]
+            client = self._start_local_cluster()
+        handle = client.scatter(shared, broadcast=True, hash=False)
+        futures = [client.submit(fn, handle, item, pure=False) for item in items]
         index = {f.key: k for k, f in enumerate(futures)}
         results: list[Any] = [None] * len(items)
         try:
@@ -275,11 +282,11 @@ class DaskEngine(Engine):
                 f"the Dask cluster at {self.label} lost a unit of work ({type(exc).__name__}: "
                 f"{exc}); nothing was stored. Check the workers' logs and memory") from None
         finally:
-            self.client.cancel(futures)
-            self.client.cancel([handle])
+            client.cancel(futures)
+            client.cancel([handle])
         return results
 
-    def _start_local_cluster(self) -> None:
+    def _start_local_cluster(self) -> Client:
         import logging
 
         from distributed import Client, LocalCluster
@@ -288,9 +295,10 @@ class DaskEngine(Engine):
                                      processes=True, host="127.0.0.1",
                                      dashboard_address=None, silence_logs=logging.ERROR)
         self.client = Client(self._cluster)
+        return self.client
 
     def close(self) -> None:
-        if getattr(self, "_owned", True):
+        if self._owned:
             if self.client is not None:
                 self.client.close()
             if self._cluster is not None:

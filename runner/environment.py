@@ -231,8 +231,9 @@ def environment_changes(a: Mapping[str, Any], b: Mapping[str, Any]) -> dict[str,
     na, nb = ea.get("numeric"), eb.get("numeric")
     changes = [_change(key, ea[key], eb[key]) for key in sorted(set(ea) & set(eb))
                if key != "numeric" and ea[key] != eb[key]]
-    both = isinstance(na, Mapping) and isinstance(nb, Mapping)
-    if both:
+    both = False
+    if isinstance(na, Mapping) and isinstance(nb, Mapping):
+        both = True
         changes += numeric_changes(na, nb)
     return {"recorded": {"a": isinstance(na, Mapping), "b": isinstance(nb, Mapping)},
             "same": (not changes) if both else None, "changes": changes}

@@ -24,8 +24,9 @@ def learned_graph(record: dict[str, Any]) -> nx.DiGraph:
     spec = record.get("spec", {})
     tier_of = {name: t for t, tier in enumerate(spec.get("tiers", [])) for name in tier}
     required = {tuple(e) for e in spec.get("required", [])}
-    graph = nx.DiGraph(name=record["spec_name"], run_id=record["run_id"],
-                       score=record["score"]["name"], graph_sha256=record["graph_sha256"])
+    graph: nx.DiGraph[str] = nx.DiGraph(
+        name=record["spec_name"], run_id=record["run_id"], score=record["score"]["name"],
+        graph_sha256=record["graph_sha256"])
     for name, column in record["data"]["columns"].items():
         graph.add_node(name, tier=tier_of.get(name, -1), kind=column["kind"],
                        states="|".join(column["states"]))

@@ -151,7 +151,8 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
                 spec_file, f"the stored bins of column {name!r} ({stored_from}) were made "
                 f"with other settings; its edges are computed from this data", key=key,
                 severity="warning"))
-        binned = discretise(x, int(bins), method, earlier["edges"] if reuse else None)
+        binned = discretise(x, int(bins), method,
+                            earlier["edges"] if reuse and earlier is not None else None)
         if len(binned.labels) < bins:
             warnings.append(Problem(
                 spec_file, f"column {name!r}: {len(binned.labels)} of the {bins} bins asked "
@@ -276,7 +277,7 @@ def _singular(names: Sequence[str], values: np.ndarray, rows: int,
     if eigenvalues[0] >= SINGULAR_EIGENVALUE:
         return []
     weight = np.abs(vectors[:, 0])
-    involved = [names[i] for i in np.flatnonzero(weight > 1e-3 * weight.max())]
+    involved = [names[int(i)] for i in np.flatnonzero(weight > 1e-3 * weight.max())]
     return [Problem(data_file, f"columns {_listed(involved)} are linearly dependent (one is a "
                     "linear combination of the others, to within rounding): the covariance "
                     "matrix is singular and a Gaussian score is undefined; drop one of them",

@@ -944,7 +944,7 @@ def _required_within_tier(spec: Spec, where: _Where) -> list[Problem]:
 
 
 def _required_vs_forbidden(spec: Spec, where: _Where) -> list[Problem]:
-    banned = {}
+    banned: dict[tuple[str, str], int] = {}
     for j, (a, b) in enumerate(spec.forbidden):
         banned.setdefault((a, b), j)
     return [

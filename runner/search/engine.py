@@ -241,7 +241,7 @@ class MoveEngine:
         for v in reversed(order):
             children = np.flatnonzero(self.adjacency[v])
             if children.size:
-                row = reach[children].any(axis=0)
+                row = np.asarray(reach[children].any(axis=0))
                 row[children] = True
                 reach[v] = row
         self.reach = reach
