@@ -41,7 +41,7 @@ import numpy as np
 
 from runner.constraints import Constraints
 from runner.scores.cache import FamilyScorer
-from runner.search.engine import RELATIVE_TOLERANCE
+from runner.search.engine import RELATIVE_TOLERANCE, BoundEngine
 from runner.search.pdag import (
     Knowledge,
     Pdag,
@@ -86,17 +86,13 @@ def cliques_within(pdag: Pdag, candidates: int, room: int) -> Iterator[int]:
                 stack.append((grown, left & pdag.adjacent(v), size - 1))
 
 
-class ClassEngine:
+class ClassEngine(BoundEngine):
     """An equivalence class of DAGs with a member that honours the constraints."""
 
     def __init__(self, scorer: FamilyScorer, constraints: Constraints,
                  parent_sets: Sequence[Sequence[int]] | None = None) -> None:
-        n = scorer.n_vars
-        if constraints.n_vars != n:
-            raise ValueError("constraints and data disagree on the number of variables")
-        self.scorer = scorer
-        self.constraints = constraints
-        self.n = n
+        super().__init__(scorer, constraints)
+        n = self.n
         self.knowledge = Knowledge.from_matrices(constraints.allowed, constraints.required,
                                                  constraints.cap())
         start = [mask_of(ps) for ps in parent_sets] if parent_sets else [0] * n

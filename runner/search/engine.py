@@ -58,7 +58,18 @@ class Move:
     target: int
 
 
-class MoveEngine:
+class BoundEngine:
+    """What every search engine holds: a scorer and constraints over the same variables."""
+
+    def __init__(self, scorer: FamilyScorer, constraints: Constraints) -> None:
+        if constraints.n_vars != scorer.n_vars:
+            raise ValueError("constraints and data disagree on the number of variables")
+        self.scorer = scorer
+        self.constraints = constraints
+        self.n = scorer.n_vars
+
+
+class MoveEngine(BoundEngine):
     """A DAG under constraints with the score change of every move kept up to date."""
 
     def __init__(
@@ -67,12 +78,8 @@ class MoveEngine:
         constraints: Constraints,
         parent_sets: Sequence[Iterable[int]] | None = None,
     ) -> None:
-        n = scorer.n_vars
-        if constraints.n_vars != n:
-            raise ValueError("constraints and data disagree on the number of variables")
-        self.scorer = scorer
-        self.constraints = constraints
-        self.n = n
+        super().__init__(scorer, constraints)
+        n = self.n
         self.allowed = constraints.allowed
         self.required = constraints.required_matrix()
         self.cap = constraints.cap()
