@@ -25,6 +25,7 @@ from runner.export import FORMATS, export
 from runner.format import render_table, summary_lines
 from runner.pipeline import RunResult, run_spec, validate
 from runner.progress import Reporter
+from runner.record import baseline_json_schema, record_json_schema
 from runner.spec import load_spec, spec_json_schema
 from runner.store import (
     atomic_write_text,
@@ -100,7 +101,13 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--results")
     p.add_argument("--json", action="store_true")
 
-    sub.add_parser("schema", help="print the spec's JSON Schema")
+    p = sub.add_parser("schema", help="print the JSON Schema of a spec (default), a run "
+                       "record or a baseline")
+    which = p.add_mutually_exclusive_group()
+    which.add_argument("--record", action="store_true",
+                       help="the schema of run.json (format version 1)")
+    which.add_argument("--baseline", action="store_true",
+                       help="the schema of baseline.json (format version 1)")
 
     p = sub.add_parser("export", help="a run's learned graph as GraphML, DOT or JSON")
     p.add_argument("run", metavar="RUN")
@@ -374,7 +381,9 @@ def _cmd_report(args: argparse.Namespace) -> int:
 
 
 def _cmd_schema(args: argparse.Namespace) -> int:
-    print(json.dumps(spec_json_schema(), indent=2, sort_keys=True))
+    schema = (record_json_schema() if args.record else
+              baseline_json_schema() if args.baseline else spec_json_schema())
+    print(json.dumps(schema, indent=2, sort_keys=True))
     return 0
 
 

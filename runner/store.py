@@ -11,6 +11,11 @@ JSON is written with sorted keys, two-space indents and a final newline, so reco
 diff cleanly under version control. A run folder is assembled under a temporary name
 in the same ``runs/`` folder and renamed into place in one step: a killed run leaves
 no half-written record, and an existing run is never overwritten.
+
+Both files have a typed layout (``runner.record``): the writers validate a record or
+baseline through its model before writing (a record that does not fit is a bug, raised
+as ``ValueError``), and the readers validate what they read (a file that does not fit is
+an ``InputError`` naming the file and the key path). Readers still return plain dicts.
 """
 
 from __future__ import annotations
@@ -22,12 +27,13 @@ import json
 import os
 import re
 import tempfile
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
 from runner.errors import InputError, Problem
 from runner.graph import graph_sha256
+from runner.record import FORMAT_VERSION, check_baseline, check_record
 
 RESULTS_ENV = "DAGMILL_RESULTS"
 RUN_ID = re.compile(r"^\d{8}T\d{6}Z-[0-9a-f]{10}(-\d+)?$")
@@ -106,6 +112,14 @@ def sealed(record: dict[str, Any], trace: str) -> dict[str, Any]:
     return {**out, RECORD_HASH_KEY: record_sha256(out)}
 
 
+def _valid(check: Callable[[Any, str], object], doc: dict[str, Any], what: str) -> None:
+    """Validate a document we are about to write; one that does not fit is our bug."""
+    try:
+        check(doc, f"the {what} being written")
+    except InputError as exc:
+        raise ValueError(f"dagmill built a {what} that does not fit its model:\n{exc}") from None
+
+
 def write_run(root: Path, record: dict[str, Any], trace: str,
               model: dict[str, Any] | None = None) -> tuple[str, Path]:
     """Store a run (and its fitted model, if given); return its final run id (a suffix is
@@ -118,6 +132,7 @@ def write_run(root: Path, record: dict[str, Any], trace: str,
         for attempt in range(1, 1000):
             run_id = base_id if attempt == 1 else f"{base_id}-{attempt}"
             record = sealed({**record, "run_id": run_id}, trace)
+            _valid(check_record, record, "run record")
             (staging / "run.json").write_text(dump_json(record), encoding="utf-8")
             (staging / "trace.csv").write_text(trace, encoding="utf-8")
             if model is not None:
@@ -166,8 +181,7 @@ def read_run(folder: Path) -> dict[str, Any]:
         raise InputError(Problem(str(path), "run record is missing")) from None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise InputError(Problem(str(path), f"run record is unreadable: {exc}")) from None
-    if not isinstance(record, dict) or "edges" not in record or "graph_sha256" not in record:
-        raise InputError(Problem(str(path), "not a dagmill run record"))
+    check_record(record, str(path))
     if graph_sha256(record["edges"]) != record["graph_sha256"]:
         raise InputError(Problem(
             str(path), "record content does not match its graph_sha256: the edges were "
@@ -277,6 +291,7 @@ def baseline_from_record(record: dict[str, Any], pinned_utc: str) -> dict[str, A
     score = record["score"]
     data = record["data"]
     return {
+        "format_version": FORMAT_VERSION,
         "run_id": record["run_id"],
         "spec_name": record["spec_name"],
         "spec_sha256": record["spec_sha256"],
@@ -316,10 +331,11 @@ def read_baseline(root: Path, spec_name: str) -> dict[str, Any] | None:
         return None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise InputError(Problem(str(path), f"baseline is unreadable: {exc}")) from None
-    needed = ("run_id", "input_sha256", "graph_sha256", "score", "edges", "data")
-    if not isinstance(doc, dict) or any(k not in doc for k in needed):
-        raise InputError(Problem(str(path), "not a dagmill baseline (re-pin with `dagmill pin "
-                                 "RUN`)"))
+    try:
+        check_baseline(doc, str(path))
+    except InputError as exc:
+        raise InputError([*exc.problems, Problem(str(path), "re-pin with `dagmill pin RUN` "
+                                                 "to replace it")]) from None
     if graph_sha256(doc["edges"]) != doc["graph_sha256"]:
         raise InputError(Problem(str(path), "baseline content does not match its graph_sha256: "
                                  "the edges were edited by hand; restore it from version "
@@ -342,6 +358,7 @@ def write_baseline(root: Path, record: dict[str, Any],
     except InputError:
         old = None
     new = baseline_from_record(record, pinned_utc)
+    _valid(check_baseline, new, "baseline")
     path = baseline_path(root, record["spec_name"])
     atomic_write_text(path, dump_json(new))
     return new, old, path

@@ -1,4 +1,6 @@
-"""Shared fixtures and helpers for the score, move-engine and reference-search tests.
+"""Shared fixtures and helpers: scores, move engine, reference searches, and the command
+line (``cli`` runs ``runner.cli.main`` in this process; ``cli_process`` runs
+``python -m runner`` as a separate process, kept for the few tests that need one).
 
 pgmpy is a test-only reference library here: it is imported lazily, inside the fixtures
 and helpers that need it, so tests that do not use it do not pay for its import.
@@ -6,10 +8,16 @@ and helpers that need it, so tests that do not use it do not pay for its import.
 
 from __future__ import annotations
 
+import io
+import os
+import subprocess
+import sys
 import warnings
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from contextlib import contextmanager, redirect_stderr, redirect_stdout
 from dataclasses import dataclass
 from functools import cache
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -24,6 +32,8 @@ from runner.search.engine import KINDS, Move
 ParentSets = list[tuple[int, ...]]
 
 ALL_SCORES = ("loglik", "aic", "bic", "bdeu", "k2")
+
+ROOT = Path(__file__).resolve().parents[1]
 
 
 # --------------------------------------------------------------------------- encoding
@@ -303,3 +313,150 @@ def asia() -> Network:
 def alarm() -> Network:
     """10,000 rows from ALARM (Beinlich et al. 1989), pgmpy's sampler, seed 11."""
     return sampled_network("alarm", 10_000, 11)
+
+
+# --------------------------------------------------------------------------- command line
+
+#: Variables a developer's shell may set that would change what a command does.
+CLI_ENV = ("DAGMILL_RESULTS", "DAGMILL_ENGINE")
+
+
+@dataclass(frozen=True)
+class CliResult:
+    """What a ``dagmill`` command returned: its exit code and its output streams (the
+    attribute names of ``subprocess.CompletedProcess``)."""
+
+    returncode: int
+    stdout: str
+    stderr: str
+
+
+@contextmanager
+def _command_environment(cwd: Path | str | None,
+                         env: dict[str, str] | None) -> Iterator[None]:
+    with pytest.MonkeyPatch.context() as patch:
+        for name in CLI_ENV:
+            patch.delenv(name, raising=False)
+        for name, value in (env or {}).items():
+            patch.setenv(name, value)
+        if cwd is not None:
+            patch.chdir(cwd)
+        yield
+
+
+def _main(args: Sequence[str | Path]) -> int:
+    from runner.cli import main
+
+    try:
+        return main([str(a) for a in args])
+    except SystemExit as exc:  # argparse's --help and --version
+        return int(exc.code or 0)
+
+
+CliCall = Callable[..., CliResult]
+ProcessCall = Callable[..., subprocess.CompletedProcess[str]]
+
+
+@pytest.fixture
+def cli(capsys: pytest.CaptureFixture[str]) -> CliCall:
+    """``cli(*args, cwd=None, env=None)``: ``runner.cli.main(args)`` in this process, with
+    ``DAGMILL_RESULTS``/``DAGMILL_ENGINE`` unset (then ``env`` set) and ``cwd`` as the
+    working directory for the call; stdout and stderr from capsys. An exception that
+    escapes ``main`` (what a user would see as a traceback) fails the test."""
+
+    def call(*args: str | Path, cwd: Path | str | None = None,
+             env: dict[str, str] | None = None) -> CliResult:
+        capsys.readouterr()
+        with _command_environment(cwd, env):
+            code = _main(args)
+        out = capsys.readouterr()
+        return CliResult(code, out.out, out.err)
+
+    return call
+
+
+def run_cli(*args: str | Path, cwd: Path | str | None = None,
+            env: dict[str, str] | None = None) -> CliResult:
+    """``cli`` for fixtures wider than a test (capsys is per test): the streams are
+    redirected to strings around the call instead."""
+    out, err = io.StringIO(), io.StringIO()
+    with _command_environment(cwd, env), redirect_stdout(out), redirect_stderr(err):
+        code = _main(args)
+    return CliResult(code, out.getvalue(), err.getvalue())
+
+
+@pytest.fixture(scope="session")
+def cli_session() -> CliCall:
+    """``run_cli`` as a fixture, for module- and session-scoped fixtures."""
+    return run_cli
+
+
+@pytest.fixture(scope="session")
+def cli_process() -> ProcessCall:
+    """``cli_process(*args, cwd=None, env=None)``: ``python -m runner *args`` in a separate
+    process importing this checkout, with ``DAGMILL_RESULTS``/``DAGMILL_ENGINE`` unset
+    (then ``env`` set). For the tests that need a real process: exit codes and output of
+    the interpreter itself, a second process's hash seed, nothing on stderr."""
+
+    def call(*args: str | Path, cwd: Path | str | None = None,
+             env: dict[str, str] | None = None) -> subprocess.CompletedProcess[str]:
+        base = {k: v for k, v in os.environ.items() if k not in CLI_ENV}
+        path = os.pathsep.join(p for p in (str(ROOT), base.get("PYTHONPATH")) if p)
+        # The timeout is a guard against a hang, not a speed measurement.
+        return subprocess.run([sys.executable, "-m", "runner", *map(str, args)], cwd=cwd,
+                              env={**base, "PYTHONPATH": path, **(env or {})},
+                              capture_output=True, text=True, timeout=600)
+
+    return call
+
+
+# --------------------------------------------------------------------------- spec cases
+
+
+#: A bootstrap block for the small case of ``write_case``.
+BOOT = "bootstrap: {replicates: 6, seed: 4, threshold: 0.6}\n"
+
+SMALL_SPEC = """\
+name: small-line
+dataset:
+  path: data.csv
+tiers:
+  - [a, b]
+  - [c]
+  - [d]
+required:
+  - [a, c]
+parent_cap: 2
+score:
+  name: bic
+search:
+  method: hill-climb
+  seed: 3
+"""
+
+
+def write_case(folder: Path, rows: int = 2000, seed: int = 1) -> Path:
+    """A small four-variable chain a -> c -> d, b -> c, sampled with numpy: ``data.csv``
+    and the spec ``small.yaml`` in ``folder``; returns the spec's path."""
+    rng = np.random.default_rng(seed)
+    a = rng.integers(0, 2, rows)
+    b = rng.integers(0, 3, rows)
+    c = (a + b + (rng.random(rows) < 0.15)) % 3
+    d = np.where(rng.random(rows) < 0.85, c % 2, 1 - c % 2)
+    pd.DataFrame({"a": a, "b": b, "c": c, "d": d}).astype(str).map(
+        lambda v: f"s{v}").to_csv(folder / "data.csv", index=False, lineterminator="\n")
+    spec = folder / "small.yaml"
+    spec.write_text(SMALL_SPEC)
+    return spec
+
+
+def demo_spec_with_holdout(folder: Path, extra: str = "", holdout: float = 0.2,
+                           seed: int = 5) -> Path:
+    """specs/kiln-line.yaml with its data path made absolute, a fit block and an
+    evaluation block (``holdout``, ``seed``), written to ``folder/kiln-line.yaml``."""
+    text = (ROOT / "specs" / "kiln-line.yaml").read_text(encoding="utf-8")
+    text = text.replace("../datasets/", f"{ROOT / 'datasets'}/")
+    text += f"fit: {{pseudo_count: 1.0}}\nevaluation: {{holdout: {holdout}, seed: {seed}}}\n"
+    path = folder / "kiln-line.yaml"
+    path.write_text(text + extra, encoding="utf-8")
+    return path

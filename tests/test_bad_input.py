@@ -3,12 +3,10 @@ no traceback, and nothing stored."""
 
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
 from pathlib import Path
 
 import pytest
+from conftest import CliCall, ProcessCall
 
 CSV = "a,b,c,d\n" + "".join(
     f"{'xy'[i % 2]},{'pqr'[i % 3]},{'uv'[(i // 2) % 2]},{'mn'[(i // 3) % 2]}\n" for i in range(60)
@@ -65,16 +63,12 @@ CASES: dict[str, tuple[str, str | None, list[str]]] = {
 
 
 @pytest.mark.parametrize("case", sorted(CASES))
-def test_bad_input_exits_2_naming_file_and_key(tmp_path: Path, case: str) -> None:
+def test_bad_input_exits_2_naming_file_and_key(tmp_path: Path, case: str, cli: CliCall) -> None:
     spec, data, fragments = CASES[case]
     (tmp_path / "spec.yaml").write_text(spec)
     (tmp_path / "data.csv").write_text(CSV if data is None else data)
-    env = {k: v for k, v in os.environ.items() if k != "DAGMILL_RESULTS"}
     for command in ("validate", "run"):
-        result = subprocess.run(
-            [sys.executable, "-m", "runner", command, "spec.yaml"], cwd=tmp_path, env=env,
-            capture_output=True, text=True, timeout=120,
-        )
+        result = cli(command, "spec.yaml", cwd=tmp_path)
         output = result.stdout + result.stderr
         assert result.returncode == 2, (command, output)
         assert "Traceback" not in output
@@ -83,10 +77,24 @@ def test_bad_input_exits_2_naming_file_and_key(tmp_path: Path, case: str) -> Non
     assert not (tmp_path / "results").exists()
 
 
-def test_single_state_column_is_a_warning(tmp_path: Path) -> None:
+@pytest.mark.parametrize("case", ["misspelt key", "missing values"])
+def test_bad_input_in_a_separate_process(tmp_path: Path, case: str,
+                                         cli_process: ProcessCall) -> None:
+    # the same refusal from `python -m runner`: exit 2 from the interpreter, no traceback
+    spec, data, fragments = CASES[case]
+    (tmp_path / "spec.yaml").write_text(spec)
+    (tmp_path / "data.csv").write_text(CSV if data is None else data)
+    result = cli_process("run", "spec.yaml", cwd=tmp_path)
+    output = result.stdout + result.stderr
+    assert result.returncode == 2, output
+    assert "Traceback" not in output
+    assert all(fragment in output for fragment in fragments), output
+    assert not (tmp_path / "results").exists()
+
+
+def test_single_state_column_is_a_warning(tmp_path: Path, cli: CliCall) -> None:
     (tmp_path / "spec.yaml").write_text(spec_text(tiers=""))
     (tmp_path / "data.csv").write_text("a,b\n" + "x,p\nx,q\n" * 20)
-    result = subprocess.run([sys.executable, "-m", "runner", "validate", "spec.yaml"],
-                            cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    result = cli("validate", "spec.yaml", cwd=tmp_path)
     assert result.returncode == 0, result.stdout + result.stderr
     assert "'a'" in result.stderr

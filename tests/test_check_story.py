@@ -1,4 +1,4 @@
-"""The whole CI story of pinning and gating, with the command line in separate processes.
+"""The whole CI story of pinning and gating, through the command line's ``main``.
 
 Everything happens in a temporary folder holding a copy of the demo scenario (the spec
 and the committed kiln-line data); no git is involved.
@@ -7,15 +7,13 @@ and the committed kiln-line data); no git is involved.
 from __future__ import annotations
 
 import json
-import os
 import shutil
-import subprocess
-import sys
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import pandas as pd
 import pytest
+from conftest import CliCall, CliResult
 
 from runner.demo.kiln_line import sample
 
@@ -25,13 +23,17 @@ REPO = Path(__file__).resolve().parents[1]
 DROP_SEED = 7
 
 
-def dagmill(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
-    env = {k: v for k, v in os.environ.items() if k != "DAGMILL_RESULTS"}
-    return subprocess.run([sys.executable, "-m", "runner", *args, "--results", "results"],
-                          cwd=cwd, env=env, capture_output=True, text=True, timeout=120)
+@pytest.fixture
+def dagmill(cli: CliCall) -> CliCall:
+    """``cli`` with ``--results results``."""
+
+    def call(*args: str, cwd: Path) -> CliResult:
+        return cli(*args, "--results", "results", cwd=cwd)
+
+    return call
 
 
-def no_traceback(done: subprocess.CompletedProcess[str]) -> None:
+def no_traceback(done: CliResult) -> None:
     assert "Traceback" not in done.stderr and "Traceback" not in done.stdout
 
 
@@ -53,7 +55,7 @@ def scenario(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return root
 
 
-def test_ci_story(scenario: Path) -> None:
+def test_ci_story(scenario: Path, dagmill: CliCall) -> None:
     cwd = scenario
     spec = "specs/kiln-line.yaml"
 
@@ -128,7 +130,7 @@ def test_ci_story(scenario: Path) -> None:
         record_path.write_text(original)
 
 
-def test_junit_report(scenario: Path, tmp_path: Path) -> None:
+def test_junit_report(scenario: Path, tmp_path: Path, dagmill: CliCall) -> None:
     cwd = tmp_path
     shutil.copytree(scenario / "specs", cwd / "specs")
     shutil.copytree(scenario / "datasets", cwd / "datasets")

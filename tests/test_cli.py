@@ -1,61 +1,21 @@
-"""End-to-end tests of the ``dagmill`` command in separate processes."""
+"""End-to-end tests of the ``dagmill`` command: in this process (``cli``), and in
+separate processes (``cli_process``) where the process itself is what is tested."""
 
 from __future__ import annotations
 
 import json
-import os
-import subprocess
-import sys
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
 import pytest
-
-SPEC = """\
-name: small-line
-dataset:
-  path: data.csv
-tiers:
-  - [a, b]
-  - [c]
-  - [d]
-required:
-  - [a, c]
-parent_cap: 2
-score:
-  name: bic
-search:
-  method: hill-climb
-  seed: 3
-"""
+from conftest import CliCall, ProcessCall, write_case
 
 
-def write_case(folder: Path, rows: int = 2000, seed: int = 1) -> Path:
-    """A small four-variable chain a -> c -> d, b -> c, sampled with numpy."""
-    rng = np.random.default_rng(seed)
-    a = rng.integers(0, 2, rows)
-    b = rng.integers(0, 3, rows)
-    c = (a + b + (rng.random(rows) < 0.15)) % 3
-    d = np.where(rng.random(rows) < 0.85, c % 2, 1 - c % 2)
-    pd.DataFrame({"a": a, "b": b, "c": c, "d": d}).astype(str).map(
-        lambda v: f"s{v}").to_csv(folder / "data.csv", index=False, lineterminator="\n")
-    spec = folder / "small.yaml"
-    spec.write_text(SPEC)
-    return spec
-
-
-def dagmill(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
-    env = {k: v for k, v in os.environ.items() if k != "DAGMILL_RESULTS"}
-    return subprocess.run([sys.executable, "-m", "runner", *args], cwd=cwd, env=env,
-                          capture_output=True, text=True, timeout=300)
-
-
-def test_rerun_in_separate_processes_is_identical(tmp_path: Path) -> None:
+def test_rerun_in_separate_processes_is_identical(tmp_path: Path,
+                                                  cli_process: ProcessCall) -> None:
     spec = write_case(tmp_path)
-    first = dagmill("run", str(spec), "--json", cwd=tmp_path)
+    first = cli_process("run", str(spec), "--json", cwd=tmp_path)
     assert first.returncode == 0, first.stderr
-    second = dagmill("run", str(spec), "--json", cwd=tmp_path)
+    second = cli_process("run", str(spec), "--json", cwd=tmp_path)
     assert second.returncode == 0, second.stderr
     one, two = json.loads(first.stdout)["runs"][0], json.loads(second.stdout)["runs"][0]
     assert one["twin"] is None
@@ -72,13 +32,13 @@ def test_rerun_in_separate_processes_is_identical(tmp_path: Path) -> None:
     assert (tmp_path / one["folder"]).exists() and (tmp_path / two["folder"]).exists()
 
 
-def test_one_byte_of_data_changes_data_hash_and_run_id(tmp_path: Path) -> None:
+def test_one_byte_of_data_changes_data_hash_and_run_id(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
-    first = json.loads(dagmill("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
+    first = json.loads(cli("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
     data = tmp_path / "data.csv"
     text = data.read_text()
     data.write_text(text[:-3] + ("s0\n" if text[-3:] != "s0\n" else "s1\n"))
-    second = json.loads(dagmill("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
+    second = json.loads(cli("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
     assert second["twin"] is None
     assert first["run_id"].split("-")[1] != second["run_id"].split("-")[1]
     r1 = json.loads(((tmp_path / first["folder"]) / "run.json").read_text())
@@ -86,17 +46,17 @@ def test_one_byte_of_data_changes_data_hash_and_run_id(tmp_path: Path) -> None:
     assert r1["data"]["sha256"] != r2["data"]["sha256"]
 
 
-def test_seed_override_changes_the_input_hash(tmp_path: Path) -> None:
+def test_seed_override_changes_the_input_hash(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
-    one = json.loads(dagmill("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
-    two = json.loads(dagmill("run", str(spec), "--seed", "4", "--json",
+    one = json.loads(cli("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
+    two = json.loads(cli("run", str(spec), "--seed", "4", "--json",
                              cwd=tmp_path).stdout)["runs"][0]
     assert one["run_id"].split("-")[1] != two["run_id"].split("-")[1]
 
 
-def test_record_has_the_guide_keys(tmp_path: Path) -> None:
+def test_record_has_the_guide_keys(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
-    out = json.loads(dagmill("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
+    out = json.loads(cli("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
     folder = tmp_path / out["folder"]
     text = (folder / "run.json").read_text()
     assert text.endswith("}\n")
@@ -118,38 +78,42 @@ def test_record_has_the_guide_keys(tmp_path: Path) -> None:
     assert text == json.dumps(record, sort_keys=True, indent=2, ensure_ascii=False) + "\n"
 
 
-def test_show_and_schema(tmp_path: Path) -> None:
+def test_show_and_schema(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
-    out = json.loads(dagmill("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
-    shown = dagmill("show", out["run_id"][:12], cwd=tmp_path)
+    out = json.loads(cli("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
+    shown = cli("show", out["run_id"][:12], cwd=tmp_path)
     assert shown.returncode == 0, shown.stderr
     assert out["graph_sha256"] in shown.stdout
     assert "not proof of cause" in shown.stdout
-    schema = dagmill("schema", cwd=tmp_path)
+    schema = cli("schema", cwd=tmp_path)
     assert schema.returncode == 0
     assert json.loads(schema.stdout)["type"] == "object"
 
 
-def test_show_unknown_run_is_exit_2(tmp_path: Path) -> None:
-    result = dagmill("show", "nope", cwd=tmp_path)
+def test_show_unknown_run_is_exit_2(tmp_path: Path, cli: CliCall) -> None:
+    result = cli("show", "nope", cwd=tmp_path)
     assert result.returncode == 2
     assert "no run matches 'nope'" in result.stderr
     assert "Traceback" not in result.stderr
 
 
-def test_bad_arguments_are_exit_2(tmp_path: Path) -> None:
-    result = dagmill("run", cwd=tmp_path)
+def test_bad_arguments_are_exit_2(tmp_path: Path, cli_process: ProcessCall) -> None:
+    # in a separate process: the exit codes the interpreter returns, not main's values
+    result = cli_process("run", cwd=tmp_path)
     assert result.returncode == 2
     assert "Traceback" not in result.stderr
+    helped = cli_process("--help", cwd=tmp_path)
+    assert helped.returncode == 0 and helped.stderr == ""
+    assert all(c in helped.stdout for c in ("validate", "run", "check", "pin", "report"))
 
 
-def test_hand_edited_record_is_refused(tmp_path: Path) -> None:
+def test_hand_edited_record_is_refused(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
-    out = json.loads(dagmill("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
+    out = json.loads(cli("run", str(spec), "--json", cwd=tmp_path).stdout)["runs"][0]
     path = tmp_path / out["folder"] / "run.json"
     record = json.loads(path.read_text())
     record["edges"] = record["edges"][1:]
     path.write_text(json.dumps(record))
-    result = dagmill("show", out["run_id"], cwd=tmp_path)
+    result = cli("show", out["run_id"], cwd=tmp_path)
     assert result.returncode == 2
     assert "run.json" in result.stderr and "graph_sha256" in result.stderr

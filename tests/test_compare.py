@@ -4,17 +4,14 @@ store, rescoring, and the bad-input paths of compare/pin/history on the command 
 from __future__ import annotations
 
 import json
-import os
 import shutil
-import subprocess
-import sys
 import xml.etree.ElementTree as ET
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pytest
-from conftest import random_dag
+from conftest import CliCall, CliResult, random_dag
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -258,15 +255,19 @@ def test_rescore_reproduces_the_stored_score_and_refuses_changed_data(demo: Path
 # --------------------------------------------------------------------------- command line
 
 
-def dagmill(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
-    env = {k: v for k, v in os.environ.items() if k != "DAGMILL_RESULTS"}
-    done = subprocess.run([sys.executable, "-m", "runner", *args, "--results", "results"],
-                          cwd=cwd, env=env, capture_output=True, text=True, timeout=120)
-    assert "Traceback" not in done.stderr
-    return done
+@pytest.fixture
+def dagmill(cli: CliCall) -> CliCall:
+    """``cli`` with ``--results results``."""
+
+    def call(*args: str, cwd: Path) -> CliResult:
+        done = cli(*args, "--results", "results", cwd=cwd)
+        assert "Traceback" not in done.stderr
+        return done
+
+    return call
 
 
-def test_compare_two_specs_warns_and_rescores(demo: Path) -> None:
+def test_compare_two_specs_warns_and_rescores(demo: Path, dagmill: CliCall) -> None:
     b, a = (p.name for p in _runs(demo))  # sorted by spec folder: kiln-k2, kiln-line
     done = dagmill("compare", a, b, "--json", cwd=demo)
     assert done.returncode == 0, done.stderr
@@ -279,7 +280,7 @@ def test_compare_two_specs_warns_and_rescores(demo: Path) -> None:
     assert "verdict" in text.stdout and "rescored" in text.stdout
 
 
-def test_unknown_and_ambiguous_run_ids(demo: Path) -> None:
+def test_unknown_and_ambiguous_run_ids(demo: Path, dagmill: CliCall) -> None:
     unknown = dagmill("show", "19990101T000000Z", cwd=demo)
     assert unknown.returncode == 2 and "no run matches '19990101T000000Z'" in unknown.stderr
     names = [p.name for p in _runs(demo)]
@@ -290,7 +291,7 @@ def test_unknown_and_ambiguous_run_ids(demo: Path) -> None:
     assert "give more of the id" in ambiguous.stderr
 
 
-def test_pin_of_a_run_whose_folder_is_gone(demo: Path) -> None:
+def test_pin_of_a_run_whose_folder_is_gone(demo: Path, dagmill: CliCall) -> None:
     source = _runs(demo)[0]
     gone = source.parent / "20200101T000000Z-abcdefabcd"
     shutil.copytree(source, gone)

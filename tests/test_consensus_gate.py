@@ -8,8 +8,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from test_cli import write_case
-from test_engines import BOOT, dagmill
+from conftest import BOOT, CliCall, write_case
 
 from runner.compare import compare_records, evaluate_gate
 from runner.graph import graph_sha256
@@ -70,29 +69,28 @@ def test_compare_reports_both_consensus_networks() -> None:
 
 
 @pytest.mark.slow
-def test_show_pin_check_story_on_consensus(tmp_path: Path) -> None:
+def test_show_pin_check_story_on_consensus(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
     spec.write_text(spec.read_text() + BOOT + "gate: {on: consensus}\n")
-    first = dagmill("run", str(spec), "--workers", "1", "--json", "--results", "r",
-                    cwd=tmp_path)
+    first = cli("run", str(spec), "--workers", "1", "--json", "--results", "r", cwd=tmp_path)
     assert first.returncode == 0, first.stderr
     run_id = json.loads(first.stdout)["runs"][0]["run_id"]
-    shown = dagmill("show", run_id, "--results", "r", cwd=tmp_path)
+    shown = cli("show", run_id, "--results", "r", cwd=tmp_path)
     assert shown.returncode == 0
     assert "bootstrap  6 replicates  seed 4  threshold 0.6" in shown.stdout
     assert "run edges with their confidence" in shown.stdout and "directed " in shown.stdout
     record = json.loads(next((tmp_path / "r").glob("*/runs/*/run.json")).read_text())
     cons = record["bootstrap"]["consensus"]
     assert cons["graph_sha256"] == graph_sha256(cons["edges"])
-    assert dagmill("pin", run_id, "--results", "r", cwd=tmp_path).returncode == 0
+    assert cli("pin", run_id, "--results", "r", cwd=tmp_path).returncode == 0
     baseline = json.loads((tmp_path / "r" / "small-line" / "baseline.json").read_text())
     assert baseline["consensus"]["edges"] == cons["edges"]
-    check = dagmill("check", str(spec), "--workers", "1", "--results", "r", cwd=tmp_path)
+    check = cli("check", str(spec), "--workers", "1", "--results", "r", cwd=tmp_path)
     assert check.returncode == 0, check.stdout + check.stderr
     assert "class edge changes (consensus)" in check.stdout
     # A hand-edited consensus in the baseline is refused, as the run's edges are.
     edited = copy.deepcopy(baseline)
     edited["consensus"]["edges"] = edited["consensus"]["edges"][1:]
     (tmp_path / "r" / "small-line" / "baseline.json").write_text(json.dumps(edited))
-    refused = dagmill("check", str(spec), "--workers", "1", "--results", "r", cwd=tmp_path)
+    refused = cli("check", str(spec), "--workers", "1", "--results", "r", cwd=tmp_path)
     assert refused.returncode == 2 and "consensus edges do not match" in refused.stderr

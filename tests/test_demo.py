@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 from pathlib import Path
+
+from conftest import CliCall
 
 from runner.demo.kiln_line import TIERS, TRUE_EDGES
 from runner.graph import cpdag, cpdag_shd, structural_hamming_distance
@@ -22,10 +22,10 @@ def test_shipped_spec_equals_the_repository_spec() -> None:
     assert shipped == (ROOT / "specs" / "kiln-line.yaml").read_bytes()
 
 
-def test_demo_writes_the_scenario_and_recovers_the_network(tmp_path: Path) -> None:
+def test_demo_writes_the_scenario_and_recovers_the_network(tmp_path: Path,
+                                                           cli: CliCall) -> None:
     target = tmp_path / "demo"
-    result = subprocess.run([sys.executable, "-m", "runner", "demo", str(target), "--json"],
-                            capture_output=True, text=True, timeout=600)
+    result = cli("demo", str(target), "--json")
     assert result.returncode == 0, result.stderr
     out = json.loads(result.stdout)
     # the generator reproduces the committed data byte for byte
@@ -45,20 +45,17 @@ def test_demo_writes_the_scenario_and_recovers_the_network(tmp_path: Path) -> No
     assert ("kiln_peak", "crack") in learned  # required
     assert ("supplier", "grade") not in learned  # forbidden
     # a second demo into the same folder leaves the files alone and reports the twin
-    again = subprocess.run([sys.executable, "-m", "runner", "run",
-                            str(target / "specs" / "kiln-line.yaml"), "--results",
-                            str(target / "results"), "--json"],
-                           capture_output=True, text=True, timeout=600)
+    again = cli("run", str(target / "specs" / "kiln-line.yaml"), "--results",
+                str(target / "results"), "--json")
     assert again.returncode == 0, again.stderr
     twin = json.loads(again.stdout)["runs"][0]["twin"]
     assert twin == {"run_id": out["run_id"], "identical": True}
 
 
-def test_demo_refuses_to_overwrite_other_files(tmp_path: Path) -> None:
+def test_demo_refuses_to_overwrite_other_files(tmp_path: Path, cli: CliCall) -> None:
     (tmp_path / "specs").mkdir()
     (tmp_path / "specs" / "kiln-line.yaml").write_text("mine\n")
-    result = subprocess.run([sys.executable, "-m", "runner", "demo", str(tmp_path)],
-                            capture_output=True, text=True, timeout=600)
+    result = cli("demo", str(tmp_path))
     assert result.returncode == 2
     assert "kiln-line.yaml" in result.stderr and "Traceback" not in result.stderr
     assert (tmp_path / "specs" / "kiln-line.yaml").read_text() == "mine\n"

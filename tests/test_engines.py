@@ -9,29 +9,16 @@ from __future__ import annotations
 import json
 import os
 import socket
-import subprocess
-import sys
 from pathlib import Path
 from typing import Any
 
 import pytest
-from test_cli import write_case
+from conftest import BOOT, CliCall, ProcessCall, write_case
 
 from runner.engines import DaskEngine, InProcess, LocalPool, choose_engine, default_workers
 from runner.errors import InputError
 from runner.pipeline import learn, prepare
 from runner.store import dump_json
-
-BOOT = "bootstrap: {replicates: 6, seed: 4, threshold: 0.6}\n"
-
-
-def dagmill(*args: str, cwd: Path, env: dict[str, str] | None = None
-            ) -> subprocess.CompletedProcess[str]:
-    base = {k: v for k, v in os.environ.items() if k not in ("DAGMILL_RESULTS", "DAGMILL_ENGINE")}
-    # The timeout is a guard against a hang, not a speed measurement.
-    return subprocess.run([sys.executable, "-m", "runner", *args], cwd=cwd,
-                          env={**base, **(env or {})}, capture_output=True, text=True,
-                          timeout=120)
 
 
 def comparable(record: dict[str, Any]) -> str:
@@ -104,7 +91,9 @@ def test_bootstrap_record_is_identical_on_every_engine(tmp_path: Path) -> None:
 
 
 @pytest.mark.slow
-def test_several_specs_as_units_match_one_at_a_time(tmp_path: Path) -> None:
+def test_several_specs_as_units_match_one_at_a_time(tmp_path: Path,
+                                                     cli_process: ProcessCall) -> None:
+    # separate processes: a real pool of workers, and nothing at all on stderr
     spec = write_case(tmp_path)
     spec.write_text(spec.read_text() + BOOT)
     other = tmp_path / "other.yaml"
@@ -112,7 +101,7 @@ def test_several_specs_as_units_match_one_at_a_time(tmp_path: Path) -> None:
                      .replace("seed: 3", "seed: 9"))
     results = {}
     for workers in ("1", "2"):
-        done = dagmill("run", str(spec), str(other), "--workers", workers, "--json",
+        done = cli_process("run", str(spec), str(other), "--workers", workers, "--json",
                        "--results", f"r{workers}", cwd=tmp_path)
         assert done.returncode == 0, done.stderr
         assert done.stderr == ""  # not a terminal: no progress bar
@@ -132,56 +121,60 @@ def _no_runs(folder: Path) -> bool:
 
 
 @pytest.mark.slow
-def test_dask_address_that_does_not_answer(tmp_path: Path) -> None:
+def test_dask_address_that_does_not_answer(tmp_path: Path, cli_process: ProcessCall) -> None:
     spec = write_case(tmp_path)
     spec.write_text(spec.read_text() + BOOT)
-    done = dagmill("run", str(spec), "--engine", f"dask://127.0.0.1:{free_port()}",
-                   "--results", "results", cwd=tmp_path)
+    done = cli_process("run", str(spec), "--engine", f"dask://127.0.0.1:{free_port()}",
+                       "--results", "results", cwd=tmp_path)
     assert done.returncode == 2
     assert "no Dask scheduler answers at dask://127.0.0.1:" in done.stderr
     assert "Traceback" not in done.stderr
     assert _no_runs(tmp_path)
 
 
-def test_unknown_engine_and_bad_workers_exit_2(tmp_path: Path) -> None:
+def test_unknown_engine_and_bad_workers_exit_2(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
     for args, env, words in (
         (["--engine", "spark"], {}, "--engine: unknown engine"),
         ([], {"DAGMILL_ENGINE": "spark"}, "DAGMILL_ENGINE: unknown engine"),
         (["--workers", "0"], {}, "--workers: must be at least 1"),
     ):
-        done = dagmill("check", str(spec), *args, "--results", "results", cwd=tmp_path,
-                       env=env)
+        done = cli("check", str(spec), *args, "--results", "results", cwd=tmp_path, env=env)
         assert done.returncode == 2, done.stderr
         assert words in done.stderr and "Traceback" not in done.stderr
     assert _no_runs(tmp_path)
 
 
-def test_bad_bootstrap_in_any_spec_stores_nothing(tmp_path: Path) -> None:
+def test_bad_bootstrap_in_any_spec_stores_nothing(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
     bad = tmp_path / "bad.yaml"
     for text, key in (("bootstrap: {replicates: 0}\n", "bootstrap.replicates"),
                       ("bootstrap: {replicates: 5, threshold: 1.5}\n", "bootstrap.threshold"),
                       ("gate: {on: consensus}\n", "gate.on")):
         bad.write_text(spec.read_text().replace("small-line", "bad-line") + text)
-        done = dagmill("run", str(spec), str(bad), "--workers", "1", "--results", "results",
-                       cwd=tmp_path)
+        done = cli("run", str(spec), str(bad), "--workers", "1", "--results", "results",
+                   cwd=tmp_path)
         assert done.returncode == 2
         assert "bad.yaml:" in done.stderr and key in done.stderr
         assert _no_runs(tmp_path)
 
 
-def in_process_run(tmp_path: Path) -> tuple[Path, str]:
-    """A bootstrap spec learned once in this process (``--workers 1``); its run id."""
+def in_process_run(tmp_path: Path, cli_process: ProcessCall) -> tuple[Path, str]:
+    """A bootstrap spec learned once in the command's process (``--workers 1``); its run id.
+
+    The command runs in a separate process, as the engine runs it compares with: a
+    record's environment block describes its process (the BLAS threads, for one), and
+    this test process's may have been changed by earlier tests (a Dask cluster sets
+    thread variables)."""
     spec = write_case(tmp_path)
     spec.write_text(spec.read_text() + BOOT)
-    local = dagmill("run", str(spec), "--workers", "1", "--json", "--results", "r",
-                    cwd=tmp_path)
+    local = cli_process("run", str(spec), "--workers", "1", "--json", "--results", "r",
+                        cwd=tmp_path)
     assert local.returncode == 0, local.stderr
     return spec, json.loads(local.stdout)["runs"][0]["run_id"]
 
 
-def assert_twin_of(done: subprocess.CompletedProcess[str], run_id: str) -> None:
+def assert_twin_of(done: Any, run_id: str) -> None:
     """The run ``done`` stored is an identical twin of the in-process ``run_id``."""
     assert done.returncode == 0, done.stderr
     (run,) = json.loads(done.stdout)["runs"]
@@ -189,10 +182,11 @@ def assert_twin_of(done: subprocess.CompletedProcess[str], run_id: str) -> None:
 
 
 @pytest.mark.slow
-def test_dask_local_engine_from_the_command_line(tmp_path: Path) -> None:
-    spec, run_id = in_process_run(tmp_path)
-    clustered = dagmill("run", str(spec), "--engine", "dask-local", "--workers", "2",
-                        "--json", "--results", "r", cwd=tmp_path)
+def test_dask_local_engine_from_the_command_line(tmp_path: Path,
+                                                 cli_process: ProcessCall) -> None:
+    spec, run_id = in_process_run(tmp_path, cli_process)
+    clustered = cli_process("run", str(spec), "--engine", "dask-local", "--workers", "2",
+                            "--json", "--results", "r", cwd=tmp_path)
     assert_twin_of(clustered, run_id)
     records = [json.loads(p.read_text()) for p in sorted(tmp_path.glob("r/*/runs/*/run.json"))]
     assert len(records) == 2
@@ -201,30 +195,30 @@ def test_dask_local_engine_from_the_command_line(tmp_path: Path) -> None:
 
 
 @pytest.mark.slow
-def test_dask_scheduler_without_workers(tmp_path: Path) -> None:
+def test_dask_scheduler_without_workers(tmp_path: Path, cli_process: ProcessCall) -> None:
     from distributed import LocalCluster
 
     spec = write_case(tmp_path)
     spec.write_text(spec.read_text() + BOOT)
     with LocalCluster(n_workers=0, host="127.0.0.1", dashboard_address=None) as cluster:
         address = cluster.scheduler_address.removeprefix("tcp://")
-        done = dagmill("run", str(spec), "--engine", f"dask://{address}", "--results",
-                       "results", cwd=tmp_path)
+        done = cli_process("run", str(spec), "--engine", f"dask://{address}", "--results",
+                           "results", cwd=tmp_path)
     assert done.returncode == 2
     assert "has no workers" in done.stderr and "Traceback" not in done.stderr
     assert _no_runs(tmp_path)
 
 
 @pytest.mark.slow
-def test_dask_address_from_the_command_line(tmp_path: Path) -> None:
+def test_dask_address_from_the_command_line(tmp_path: Path, cli_process: ProcessCall) -> None:
     from distributed import LocalCluster
 
-    spec, run_id = in_process_run(tmp_path)
+    spec, run_id = in_process_run(tmp_path, cli_process)
     with LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1",
                       dashboard_address=None) as cluster:
         address = cluster.scheduler_address.removeprefix("tcp://")
-        remote = dagmill("run", str(spec), "--json", "--results", "r", cwd=tmp_path,
-                         env={"DAGMILL_ENGINE": f"dask://{address}"})
+        remote = cli_process("run", str(spec), "--json", "--results", "r", cwd=tmp_path,
+                             env={"DAGMILL_ENGINE": f"dask://{address}"})
     assert_twin_of(remote, run_id)
 
 

@@ -398,7 +398,7 @@ def test_matrix_covers_every_score_and_method(matrix_specs: tuple[Path, list[Pat
 
 
 def test_numeric_block_is_in_the_record(tmp_path: Path) -> None:
-    from test_cli import write_case
+    from conftest import write_case
 
     record, _ = learn(prepare(write_case(tmp_path, rows=300)))
     numeric = record["environment"]["numeric"]
@@ -425,7 +425,7 @@ def test_numeric_block_is_in_the_record(tmp_path: Path) -> None:
 
 def test_the_numeric_environment_does_not_enter_the_input_hash(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    from test_cli import write_case
+    from conftest import write_case
 
     prepared = prepare(write_case(tmp_path, rows=300))
     plain, _ = learn(prepared)
@@ -530,7 +530,7 @@ def test_not_reproduced_message_and_compare_name_the_environment(tmp_path: Path)
 def test_compare_of_stored_runs_with_and_without_the_block(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
 ) -> None:
-    from test_cli import write_case
+    from conftest import write_case
 
     from runner.cli import main
     from runner.store import read_run, write_run

@@ -7,13 +7,13 @@ from __future__ import annotations
 import csv
 import json
 import math
-import subprocess
-import sys
 from collections import Counter
 from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import CliCall
+from conftest import demo_spec_with_holdout as holdout_spec
 
 ROOT = Path(__file__).resolve().parents[1]
 HOLDOUT, SEED = 0.2, 5
@@ -21,24 +21,15 @@ HOLDOUT, SEED = 0.2, 5
 
 def demo_spec_with_holdout(folder: Path, extra: str = "") -> Path:
     """specs/kiln-line.yaml with its data path made absolute and an evaluation block."""
-    text = (ROOT / "specs" / "kiln-line.yaml").read_text(encoding="utf-8")
-    text = text.replace("../datasets/", f"{ROOT / 'datasets'}/")
-    text += f"fit: {{pseudo_count: 1.0}}\nevaluation: {{holdout: {HOLDOUT}, seed: {SEED}}}\n"
-    path = folder / "kiln-line.yaml"
-    path.write_text(text + extra, encoding="utf-8")
-    return path
-
-
-def run(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "runner", *args], capture_output=True,
-                          text=True, timeout=600)
+    return holdout_spec(folder, extra, HOLDOUT, SEED)
 
 
 @pytest.fixture(scope="module")
-def stored(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict, dict]:
+def stored(tmp_path_factory: pytest.TempPathFactory,
+           cli_session: CliCall) -> tuple[Path, dict, dict]:
     folder = tmp_path_factory.mktemp("evaluation")
-    result = run("run", str(demo_spec_with_holdout(folder)), "--results",
-                 str(folder / "results"), "--json")
+    result = cli_session("run", str(demo_spec_with_holdout(folder)), "--results",
+                         str(folder / "results"), "--json")
     assert result.returncode == 0, result.stderr
     run_folder = Path(json.loads(result.stdout)["runs"][0]["folder"])
     record = json.loads((run_folder / "run.json").read_text())
@@ -94,7 +85,7 @@ def test_learned_graph_beats_the_empty_graph_on_held_out_rows(
 
 
 def test_model_file_is_covered_by_the_record(stored: tuple[Path, dict, dict],
-                                             tmp_path: Path) -> None:
+                                             tmp_path: Path, cli: CliCall) -> None:
     import hashlib
     import shutil
 
@@ -105,33 +96,33 @@ def test_model_file_is_covered_by_the_record(stored: tuple[Path, dict, dict],
     results = tmp_path / "results"
     copy = results / "kiln-line" / "runs" / folder.name
     shutil.copytree(folder, copy)
-    shown = run("show", folder.name, "--results", str(results))
+    shown = cli("show", folder.name, "--results", str(results))
     assert shown.returncode == 0 and "log-likelihood per held-out row" in shown.stdout
     edited = json.loads(text)
     edited["pseudo_count"] = 2.0
     (copy / "model.json").write_text(json.dumps(edited))
-    refused = run("show", folder.name, "--results", str(results))
+    refused = cli("show", folder.name, "--results", str(results))
     assert refused.returncode == 2 and "model.json" in refused.stderr
     assert "edited" in refused.stderr and "Traceback" not in refused.stderr
     (copy / "model.json").unlink()
-    missing = run("show", folder.name, "--results", str(results))
+    missing = cli("show", folder.name, "--results", str(results))
     assert missing.returncode == 2 and "missing" in missing.stderr
 
 
 def test_compare_shows_the_held_out_difference(stored: tuple[Path, dict, dict],
-                                               tmp_path: Path) -> None:
+                                               tmp_path: Path, cli: CliCall) -> None:
     folder, record, _ = stored
     spec = demo_spec_with_holdout(tmp_path).read_text().replace("name: bic", "name: aic")
     (tmp_path / "kiln-line.yaml").write_text(spec)
     results = folder.parents[2]
-    other = run("run", str(tmp_path / "kiln-line.yaml"), "--results", str(results), "--json")
+    other = cli("run", str(tmp_path / "kiln-line.yaml"), "--results", str(results), "--json")
     assert other.returncode == 0, other.stderr
     other_id = json.loads(other.stdout)["runs"][0]["run_id"]
-    out = run("compare", record["run_id"], other_id, "--results", str(results), "--json")
+    out = cli("compare", record["run_id"], other_id, "--results", str(results), "--json")
     held = json.loads(out.stdout)["held_out"]
     assert held["same_rows"] is True
     assert held["delta_per_row"] == pytest.approx(held["b_per_row"] - held["a_per_row"])
-    text = run("compare", record["run_id"], other_id, "--results", str(results)).stdout
+    text = cli("compare", record["run_id"], other_id, "--results", str(results)).stdout
     assert "held out   log-likelihood per row A" in text
 
 

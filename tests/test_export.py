@@ -4,35 +4,39 @@ from __future__ import annotations
 
 import json
 import re
-import subprocess
-import sys
 from pathlib import Path
 
 import networkx as nx
 import pytest
+from conftest import CliCall, CliResult
 
 ROOT = Path(__file__).resolve().parents[1]
 
 
 @pytest.fixture(scope="module")
-def stored_run(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict]:
+def stored_run(tmp_path_factory: pytest.TempPathFactory,
+               cli_session: CliCall) -> tuple[Path, dict]:
     folder = tmp_path_factory.mktemp("export")
-    result = subprocess.run([sys.executable, "-m", "runner", "run",
-                             str(ROOT / "specs" / "kiln-line.yaml"), "--results",
-                             str(folder / "results"), "--json"],
-                            capture_output=True, text=True, timeout=600)
+    result = cli_session("run", str(ROOT / "specs" / "kiln-line.yaml"), "--results",
+                         str(folder / "results"), "--json")
     assert result.returncode == 0, result.stderr
     run = json.loads(result.stdout)["runs"][0]
     return folder, json.loads((Path(run["folder"]) / "run.json").read_text())
 
 
-def export(folder: Path, record: dict, fmt: str, *extra: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "runner", "export", record["run_id"],
-                           "--format", fmt, "--results", str(folder / "results"), *extra],
-                          capture_output=True, text=True, timeout=120)
+@pytest.fixture
+def export(cli: CliCall) -> CliCall:
+    """``export(folder, record, fmt, *extra)``: ``dagmill export`` of the record's run."""
+
+    def call(folder: Path, record: dict, fmt: str, *extra: str) -> CliResult:
+        return cli("export", record["run_id"], "--format", fmt, "--results",
+                   str(folder / "results"), *extra)
+
+    return call
 
 
-def test_graphml_round_trip_through_networkx(stored_run: tuple[Path, dict]) -> None:
+def test_graphml_round_trip_through_networkx(stored_run: tuple[Path, dict],
+                                             export: CliCall) -> None:
     # reference reader: networkx.read_graphml (GraphML, the open XML graph standard)
     folder, record = stored_run
     out = folder / "model.graphml"
@@ -53,7 +57,7 @@ def test_graphml_round_trip_through_networkx(stored_run: tuple[Path, dict]) -> N
     assert graph.edges["kiln_peak", "crack"]["required"] is True
 
 
-def test_dot_has_every_edge(stored_run: tuple[Path, dict]) -> None:
+def test_dot_has_every_edge(stored_run: tuple[Path, dict], export: CliCall) -> None:
     folder, record = stored_run
     result = export(folder, record, "dot")
     assert result.returncode == 0
@@ -63,7 +67,7 @@ def test_dot_has_every_edge(stored_run: tuple[Path, dict]) -> None:
     assert result.stdout.startswith('digraph "kiln-line" {') and result.stdout.endswith("}\n")
 
 
-def test_dot_parsed_back_by_pydot(stored_run: tuple[Path, dict]) -> None:
+def test_dot_parsed_back_by_pydot(stored_run: tuple[Path, dict], export: CliCall) -> None:
     # reference parser: pydot 4 (Graphviz DOT grammar)
     import pydot
 
@@ -107,7 +111,7 @@ def test_bootstrap_confidence_in_graphml_and_dot(stored_run: tuple[Path, dict]) 
     assert all("confidence" not in d for _, _, d in plain.edges(data=True))
 
 
-def test_json_export(stored_run: tuple[Path, dict]) -> None:
+def test_json_export(stored_run: tuple[Path, dict], export: CliCall) -> None:
     folder, record = stored_run
     document = json.loads(export(folder, record, "json").stdout)
     assert document["graph_sha256"] == record["graph_sha256"]
@@ -122,7 +126,7 @@ def test_json_export(stored_run: tuple[Path, dict]) -> None:
         assert sorted(var["parents"]) == parents
 
 
-def test_export_bad_input(stored_run: tuple[Path, dict]) -> None:
+def test_export_bad_input(stored_run: tuple[Path, dict], export: CliCall) -> None:
     folder, record = stored_run
     unknown = export(folder, record, "svg")
     assert unknown.returncode == 2 and "invalid choice: 'svg'" in unknown.stderr
@@ -132,15 +136,15 @@ def test_export_bad_input(stored_run: tuple[Path, dict]) -> None:
     assert not (folder / "no").exists()
 
 
-def test_confidence_of_a_real_bootstrap_run_reaches_the_graphml(tmp_path: Path) -> None:
+def test_confidence_of_a_real_bootstrap_run_reaches_the_graphml(tmp_path: Path, cli: CliCall,
+                                                                export: CliCall) -> None:
     # reference reader: networkx.read_graphml
     text = (ROOT / "specs" / "kiln-line.yaml").read_text(encoding="utf-8")
     text = text.replace("../datasets/", f"{ROOT / 'datasets'}/")
     spec = tmp_path / "kiln-line.yaml"
     spec.write_text(text + "bootstrap: {replicates: 3, seed: 1}\n", encoding="utf-8")
-    result = subprocess.run([sys.executable, "-m", "runner", "run", str(spec), "--results",
-                             str(tmp_path / "results"), "--json", "--workers", "1"],
-                            capture_output=True, text=True, timeout=600)
+    result = cli("run", str(spec), "--results", str(tmp_path / "results"), "--json",
+                 "--workers", "1")
     assert result.returncode == 0, result.stderr
     record = json.loads((Path(json.loads(result.stdout)["runs"][0]["folder"])
                          / "run.json").read_text())

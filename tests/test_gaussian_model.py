@@ -5,12 +5,11 @@ from __future__ import annotations
 
 import csv
 import json
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import CliCall
 
 ROOT = Path(__file__).resolve().parents[1]
 HOLDOUT, SEED = 0.25, 3
@@ -25,10 +24,8 @@ def gauss_spec(folder: Path, extra: str = "") -> Path:
     return path
 
 
-def run_json(spec: Path, results: Path, *extra: str) -> tuple[Path, dict, dict]:
-    out = subprocess.run([sys.executable, "-m", "runner", "run", str(spec), "--results",
-                          str(results), "--json", *extra], capture_output=True, text=True,
-                         timeout=600)
+def run_json(cli: CliCall, spec: Path, results: Path, *extra: str) -> tuple[Path, dict, dict]:
+    out = cli("run", str(spec), "--results", str(results), "--json", *extra)
     assert out.returncode == 0, out.stderr
     folder = Path(json.loads(out.stdout)["runs"][0]["folder"])
     return (folder, json.loads((folder / "run.json").read_text()),
@@ -42,10 +39,11 @@ def columns() -> dict[str, np.ndarray]:
 
 
 @pytest.fixture(scope="module")
-def held_out_run(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict, dict]:
+def held_out_run(tmp_path_factory: pytest.TempPathFactory,
+                 cli_session: CliCall) -> tuple[Path, dict, dict]:
     folder = tmp_path_factory.mktemp("gauss-model")
     spec = gauss_spec(folder, f"evaluation: {{holdout: {HOLDOUT}, seed: {SEED}}}\n")
-    return run_json(spec, folder / "results")
+    return run_json(cli_session, spec, folder / "results")
 
 
 def learning_and_held(n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -103,25 +101,21 @@ def test_held_out_log_density_recomputed_with_scipy(
 
 
 def test_show_and_report_of_a_gaussian_run(held_out_run: tuple[Path, dict, dict],
-                                           tmp_path: Path) -> None:
+                                           tmp_path: Path, cli: CliCall) -> None:
     folder, record, _ = held_out_run
     results = folder.parents[2]
-    show = subprocess.run([sys.executable, "-m", "runner", "show", record["run_id"],
-                           "--results", str(results)], capture_output=True, text=True,
-                          timeout=120)
+    show = cli("show", record["run_id"], "--results", str(results))
     assert show.returncode == 0, show.stderr
     assert "log density per held-out row" in show.stdout
     out = tmp_path / "report.html"
-    report = subprocess.run([sys.executable, "-m", "runner", "report", record["run_id"],
-                             "--results", str(results), "--out", str(out)],
-                            capture_output=True, text=True, timeout=120)
+    report = cli("report", record["run_id"], "--results", str(results), "--out", str(out))
     assert report.returncode == 0, report.stderr
     assert "residual" in out.read_text(encoding="utf-8").lower()
 
 
-def test_bootstrap_of_a_gaussian_spec(tmp_path: Path) -> None:
+def test_bootstrap_of_a_gaussian_spec(tmp_path: Path, cli: CliCall) -> None:
     spec = gauss_spec(tmp_path, "bootstrap: {replicates: 4, seed: 2}\n")
-    _, record, _ = run_json(spec, tmp_path / "results", "--workers", "1")
+    _, record, _ = run_json(cli, spec, tmp_path / "results", "--workers", "1")
     shares = record["bootstrap"]["frequencies"]
     assert shares and all(0.0 <= r["directed"] <= r["class"] <= r["adjacent"] <= 1.0
                           for r in shares)

@@ -5,8 +5,7 @@ from __future__ import annotations
 import io
 from pathlib import Path
 
-from test_cli import write_case
-from test_engines import BOOT, dagmill
+from conftest import BOOT, ProcessCall, write_case
 
 from runner.pipeline import learn, prepare
 from runner.progress import Progress, Reporter, bar_text
@@ -56,10 +55,12 @@ def test_bootstrap_shows_a_bar_on_a_terminal(tmp_path: Path) -> None:
     assert "bootstrap small-line" in stream.getvalue() and "6/6" in stream.getvalue()
 
 
-def test_command_line_stderr_stays_clean_when_not_a_terminal(tmp_path: Path) -> None:
+def test_command_line_stderr_stays_clean_when_not_a_terminal(tmp_path: Path,
+                                                             cli_process: ProcessCall) -> None:
+    # a separate process: its whole stderr, Python's own warnings included
     spec = write_case(tmp_path)
     spec.write_text(spec.read_text() + BOOT)
-    done = dagmill("run", str(spec), "--workers", "1", "--results", "r", cwd=tmp_path)
+    done = cli_process("run", str(spec), "--workers", "1", "--results", "r", cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     assert done.stderr == ""
 

@@ -8,13 +8,12 @@ import re
 import shutil
 import struct
 import subprocess
-import sys
 import zlib
 from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
-from test_evaluation import demo_spec_with_holdout
+from conftest import CliCall, CliResult, demo_spec_with_holdout
 
 VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",
         "track", "wbr"}
@@ -63,14 +62,27 @@ def parse(text: str) -> Checked:
     return checked
 
 
-def run(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "runner", *args], capture_output=True,
-                          text=True, timeout=600, cwd=cwd)
+@pytest.fixture
+def run(cli: CliCall) -> CliCall:
+    """``dagmill *args`` in this process."""
+    return cli
+
+
+@pytest.fixture
+def report(cli: CliCall) -> CliCall:
+    """``dagmill report *args --results folder/results`` in this process."""
+
+    def call(folder: Path, *args: str) -> CliResult:
+        return cli("report", *args, "--results", str(folder / "results"))
+
+    return call
 
 
 @pytest.fixture(scope="module")
-def two_runs(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict, dict]:
+def two_runs(tmp_path_factory: pytest.TempPathFactory,
+             cli_session: CliCall) -> tuple[Path, dict, dict]:
     """The demo spec with a hold-out (BIC), and again under AIC with restarts."""
+    run = cli_session
     folder = tmp_path_factory.mktemp("report")
     results = folder / "results"
     first = run("run", str(demo_spec_with_holdout(folder)), "--results", str(results),
@@ -89,12 +101,8 @@ def two_runs(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict, dict
     return folder, a, b
 
 
-def report(folder: Path, *args: str) -> subprocess.CompletedProcess:
-    return run("report", *args, "--results", str(folder / "results"))
-
-
 def test_report_is_well_formed_and_draws_every_variable_and_edge(
-        two_runs: tuple[Path, dict, dict]) -> None:
+        two_runs: tuple[Path, dict, dict], report: CliCall) -> None:
     folder, a, _ = two_runs
     out = folder / "a.html"
     result = report(folder, a["run_id"], "--out", str(out), "--show-forbidden")
@@ -137,7 +145,8 @@ def assert_offline(text: str) -> None:
     assert all(u.startswith("#") for u in re.findall(r"url\(([^)]*)\)", text))
 
 
-def test_report_against_another_run(two_runs: tuple[Path, dict, dict]) -> None:
+def test_report_against_another_run(two_runs: tuple[Path, dict, dict],
+                                    report: CliCall) -> None:
     folder, a, b = two_runs
     out = folder / "vs.html"
     assert report(folder, b["run_id"], "--vs", a["run_id"], "--out", str(out)).returncode == 0
@@ -166,7 +175,7 @@ def test_report_against_another_run(two_runs: tuple[Path, dict, dict]) -> None:
     assert_offline(text)
 
 
-def test_text_is_escaped(tmp_path: Path) -> None:
+def test_text_is_escaped(tmp_path: Path, run: CliCall, report: CliCall) -> None:
     data = tmp_path / "odd.csv"
     data.write_text('"a<b>","c&d","e""f",g\n' + "".join(
         f"{i % 2},{(i // 2) % 2},{i % 3},{(i * 7) % 2}\n" for i in range(60)))
@@ -232,7 +241,7 @@ def png_pixels(path: Path) -> tuple[int, int, list[bytes]]:
 
 
 def test_report_opens_in_headless_chromium(two_runs: tuple[Path, dict, dict],
-                                           tmp_path: Path) -> None:
+                                           tmp_path: Path, report: CliCall) -> None:
     browser = shutil.which("chromium") or shutil.which("chromium-browser")
     if browser is None:
         pytest.skip("headless Chromium is not installed (Debian package 'chromium'; "
@@ -257,7 +266,8 @@ def test_report_opens_in_headless_chromium(two_runs: tuple[Path, dict, dict],
 
 
 def test_report_refuses_a_run_whose_model_was_removed_or_edited(
-        two_runs: tuple[Path, dict, dict], tmp_path: Path) -> None:
+        two_runs: tuple[Path, dict, dict], tmp_path: Path, run: CliCall,
+        report: CliCall) -> None:
     folder, a, _ = two_runs
     source = folder / "results" / "kiln-line" / "runs" / a["run_id"]
     copy = tmp_path / "results" / "kiln-line" / "runs" / a["run_id"]
@@ -278,7 +288,7 @@ def test_report_refuses_a_run_whose_model_was_removed_or_edited(
     assert not out.exists()
 
 
-def test_report_bad_arguments(two_runs: tuple[Path, dict, dict]) -> None:
+def test_report_bad_arguments(two_runs: tuple[Path, dict, dict], report: CliCall) -> None:
     folder, a, _ = two_runs
     nowhere = report(folder, a["run_id"], "--out", str(folder / "no" / "such" / "r.html"))
     assert nowhere.returncode == 2 and "does not exist" in nowhere.stderr
@@ -289,7 +299,7 @@ def test_report_bad_arguments(two_runs: tuple[Path, dict, dict]) -> None:
 
 
 def test_run_prints_the_report_command_and_the_default_path(
-        two_runs: tuple[Path, dict, dict], tmp_path: Path) -> None:
+        two_runs: tuple[Path, dict, dict], tmp_path: Path, run: CliCall) -> None:
     folder = two_runs[0]
     shown = run("run", str(folder / "kiln-line.yaml"), "--results", str(tmp_path / "res"))
     assert shown.returncode == 0

@@ -3,12 +3,11 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import CliCall, ProcessCall
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -127,17 +126,18 @@ def test_budget_stops_are_named_and_not_converged() -> None:
 
 
 @pytest.mark.parametrize("method", [*LOCAL_METHODS, "order", "exact"])
-def test_each_method_is_deterministic_across_processes(tmp_path: Path, method: str) -> None:
+def test_each_method_is_deterministic_across_processes(tmp_path: Path, method: str,
+                                                       cli: CliCall,
+                                                       cli_process: ProcessCall) -> None:
+    # one run in this process, its rerun in a separate one (another hash seed)
     spec = (ROOT / "specs" / "kiln-line.yaml").read_text()
     spec = spec.replace("method: hill-climb", f"method: {method}").replace(
         "restarts: 0", "restarts: 1").replace("../datasets/kiln-line.csv",
                                              str(ROOT / "datasets" / "kiln-line.csv"))
     (tmp_path / "spec.yaml").write_text(spec)
     outs = []
-    for _ in range(2):
-        result = subprocess.run(
-            [sys.executable, "-m", "runner", "run", "spec.yaml", "--json", "--results", "r"],
-            cwd=tmp_path, capture_output=True, text=True, timeout=600)
+    for call in (cli, cli_process):
+        result = call("run", "spec.yaml", "--json", "--results", "r", cwd=tmp_path)
         assert result.returncode == 0, result.stderr
         outs.append(json.loads(result.stdout)["runs"][0])
     assert outs[1]["twin"] == {"run_id": outs[0]["run_id"], "identical": True}
@@ -152,16 +152,14 @@ def test_each_method_is_deterministic_across_processes(tmp_path: Path, method: s
         assert records[0]["search"]["proven_optimal"] == (method == "exact")
 
 
-def test_exact_confirms_the_demo_optimum(tmp_path: Path) -> None:
+def test_exact_confirms_the_demo_optimum(tmp_path: Path, cli: CliCall) -> None:
     scores = {}
     for method in ("hill-climb", "exact"):
         spec = (ROOT / "specs" / "kiln-line.yaml").read_text().replace(
             "method: hill-climb", f"method: {method}").replace(
             "../datasets/kiln-line.csv", str(ROOT / "datasets" / "kiln-line.csv"))
         (tmp_path / f"{method}.yaml").write_text(spec)
-        result = subprocess.run(
-            [sys.executable, "-m", "runner", "run", f"{method}.yaml", "--json", "--results",
-             "r"], cwd=tmp_path, capture_output=True, text=True, timeout=600)
+        result = cli("run", f"{method}.yaml", "--json", "--results", "r", cwd=tmp_path)
         assert result.returncode == 0, result.stderr
         scores[method] = json.loads(result.stdout)["runs"][0]
     # greedy search reaches the global optimum on the demo; exact proves it
@@ -185,34 +183,31 @@ ORDER_CASES = {
 
 
 @pytest.mark.parametrize("case", sorted(ORDER_CASES))
-def test_method_parameters_bad_input(tmp_path: Path, case: str) -> None:
+def test_method_parameters_bad_input(tmp_path: Path, case: str, cli: CliCall) -> None:
     search, fragments = ORDER_CASES[case]
     (tmp_path / "data.csv").write_text("a,b,c,d\n" + "x,p,u,m\ny,q,v,n\n" * 10)
     (tmp_path / "spec.yaml").write_text(
         f"name: m\ndataset:\n  path: data.csv\ntiers:\n  - [a, b]\n  - [d]\n"
         f"search:\n  {search}\n")
-    result = subprocess.run([sys.executable, "-m", "runner", "run", "spec.yaml"],
-                            cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    result = cli("run", "spec.yaml", cwd=tmp_path)
     assert result.returncode == 2, result.stdout + result.stderr
     assert "Traceback" not in result.stderr and "spec.yaml" in result.stderr
     for fragment in fragments:
         assert fragment in result.stderr, (fragment, result.stderr)
     assert not (tmp_path / "results").exists()
     # validate reports the same problem, before anything would be scored
-    checked = subprocess.run([sys.executable, "-m", "runner", "validate", "spec.yaml"],
-                             cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    checked = cli("validate", "spec.yaml", cwd=tmp_path)
     assert checked.returncode == 2, checked.stdout + checked.stderr
     for fragment in fragments:
         assert fragment in checked.stdout + checked.stderr, (fragment, checked.stdout)
 
 
-def test_tabu_tenure_on_hill_climb_is_a_warning(tmp_path: Path) -> None:
+def test_tabu_tenure_on_hill_climb_is_a_warning(tmp_path: Path, cli: CliCall) -> None:
     (tmp_path / "data.csv").write_text("a,b\n" + "x,p\ny,q\n" * 10)
     (tmp_path / "spec.yaml").write_text(
         "name: m\ndataset:\n  path: data.csv\nsearch:\n  method: hill-climb\n"
         "  tabu_tenure: 5\n")
-    result = subprocess.run([sys.executable, "-m", "runner", "validate", "spec.yaml"],
-                            cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    result = cli("validate", "spec.yaml", cwd=tmp_path)
     assert result.returncode == 0, result.stdout + result.stderr
     assert "tabu_tenure" in result.stderr and "warning" in result.stderr
 

@@ -1,0 +1,447 @@
+"""Typed records: the layouts of ``run.json`` (:class:`RunRecord`) and ``baseline.json``
+(:class:`Baseline`) as pydantic models, checked where the store writes and reads them.
+
+Versions. A record or baseline carries ``format_version``; this module describes version
+1. Files written before the key existed are version 0: they are read with the looser
+:class:`LegacyRunRecord` / :class:`LegacyBaseline`, which check only what every reader has
+always needed (the edges, their graph hash, the score's value; a baseline's identity),
+and let everything else through as it is. A ``format_version`` this module does not know
+(a newer dagmill wrote the file) is refused.
+
+Strictness. Every model validates in strict mode: a string is not a number, ``1`` is not
+``true`` and a number is never converted to a string, so what passes is what was written.
+(A float field accepts an integer, which JSON cannot tell apart from an integral float;
+the records we write hold floats there.) Extra keys are refused (``extra="forbid"``)
+wherever the layout is ours and fixed, so a misspelt or stray key is an error instead of
+a check silently switched off; they are allowed only in the blocks that are free-form by
+design, each saying why: ``spec`` (the normalised spec, validated by ``runner.spec``),
+``search.parameters`` (the settings of the chosen method, which differ per method),
+``environment`` (one entry per installed library of interest) and
+``environment.numeric`` (whatever the machine reports about its CPU and BLAS).
+
+Round trip. ``model.model_dump(mode="json", by_alias=True, exclude_unset=True)`` of a
+validated record gives back the dict it was validated from (the tests hold every demo
+record to that, byte for byte through ``store.dump_json``). The store still hands dicts
+to its callers; moving readers to attribute access is a later step.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from runner.errors import InputError, Problem
+
+FORMAT_VERSION = 1
+SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
+
+Edge = Annotated[list[str], Field(min_length=2, max_length=2,
+                                  description="[from, to]: a directed edge")]
+Sha256 = Annotated[str, Field(description="sha256, 64 lowercase hex digits")]
+
+
+class Fixed(BaseModel):
+    """A block whose layout is ours and fixed: unknown keys are refused."""
+
+    model_config = ConfigDict(strict=True, extra="forbid", populate_by_name=True)
+
+
+class Open(BaseModel):
+    """A block that is free-form by design: unknown keys are kept as written."""
+
+    model_config = ConfigDict(strict=True, extra="allow", populate_by_name=True)
+
+
+# --------------------------------------------------------------------------- data
+
+
+class Binning(Fixed):
+    """How a continuous column was cut into bins for a discrete score."""
+
+    method: str
+    bins: int
+    edges: list[float]
+    cuts: list[float]
+    source: str
+    below_range: int
+    above_range: int
+
+
+class Column(Fixed):
+    """One column of the data: its kind, why, and its states (binned labels for a binned
+    column, none for a continuous one under a Gaussian score, which has its ``range``)."""
+
+    kind: Literal["discrete", "continuous"]
+    kind_reason: str
+    states: list[str]
+    binning: Binning | None = None
+    range: Annotated[list[float], Field(min_length=2, max_length=2)] | None = None
+
+
+class Data(Fixed):
+    """The data file: path as given, sha256, rows, and each column."""
+
+    path: str
+    sha256: Sha256
+    rows: int
+    dropped_rows: int
+    columns: dict[str, Column]
+    rows_learned: int | None = None
+    rows_held_out: int | None = None
+
+
+# --------------------------------------------------------------------------- score
+
+
+class BgePrior(Fixed):
+    alpha_mu: float
+    alpha_w: float
+    prior_scale: float
+
+
+class Score(Fixed):
+    """The score of the learned graph: total, per row and per family."""
+
+    name: str
+    value: float
+    per_row: float
+    families: dict[str, float]
+    score_equivalent: bool
+    ess: float | None = None
+    bge_prior: BgePrior | None = None
+
+
+# --------------------------------------------------------------------------- search
+
+
+class SearchBudget(Fixed):
+    max_steps: int | None
+    max_evaluations: int | None
+    max_seconds: float | None
+
+
+class RestartRun(Fixed):
+    """One run of a (restarted) local search."""
+
+    run: int
+    kicks: int
+    start_score: float
+    end_score: float
+    steps: int
+    stop_reason: str
+
+
+class Phase(Fixed):
+    """One phase of greedy equivalence search."""
+
+    phase: str
+    steps: int
+    end_score: float
+
+
+class Search(Fixed):
+    """The search as run. ``parameters`` is free-form: each method has its own settings
+    (restarts and kick, tabu tenure and patience, the order, candidate-set limits)."""
+
+    method: str
+    start: str
+    seed: int
+    stop_reason: str
+    steps: int
+    evaluations: int
+    cache_hits: int
+    converged: bool
+    parameters: dict[str, Any]
+    runs: list[RestartRun]
+    budget: SearchBudget
+    proven_optimal: bool
+    optimal_for_order: bool | None = None
+    candidate_sets: dict[str, int] | None = None
+    phases: list[Phase] | None = None
+
+
+class Seconds(Fixed):
+    search: float
+    total: float
+    bootstrap: float | None = None
+
+
+class Environment(Open):
+    """Library versions and the platform. Open: one entry per library of interest (the
+    list grows with the package), and ``numeric`` is whatever the machine reports about
+    its CPU, numpy's SIMD features and the BLAS (absent in records from before it)."""
+
+    python: str
+    numpy: str
+    pandas: str
+    platform: str
+    numeric: dict[str, Any] | None = None
+
+
+class ModelReference(Fixed):
+    """The fitted model file beside ``run.json``."""
+
+    file: str
+    sha256: Sha256
+    estimator: str
+    pseudo_count: float | None
+
+
+# --------------------------------------------------------------------------- bootstrap
+
+
+class Frequency(Fixed):
+    """An edge's share of bootstrap replicates: as directed, in the class, as adjacent."""
+
+    edge: Edge
+    directed: float
+    class_: float = Field(alias="class")
+    adjacent: float
+
+
+class Skipped(Fixed):
+    pair: Edge
+    adjacent: float
+    reason: str
+
+
+class Consensus(Fixed):
+    edges: list[Edge]
+    graph_sha256: Sha256
+    skipped: list[Skipped]
+    rule: str
+
+
+class Bootstrap(Fixed):
+    replicates: int
+    seed: int
+    threshold: float
+    seeding: str
+    not_converged: int
+    frequencies: list[Frequency]
+    consensus: Consensus
+
+
+# --------------------------------------------------------------------------- evaluation
+
+
+class LogLikelihood(Fixed):
+    learned: float
+    empty: float
+    learned_per_row: float
+    empty_per_row: float
+    difference_per_row: float
+
+
+class UnseenCounts(Fixed):
+    configurations: int
+    states: int
+
+
+class Unseen(Fixed):
+    configurations: int
+    states: int
+    empty_graph_states: int
+    by_variable: dict[str, UnseenCounts]
+
+
+class Evaluation(Fixed):
+    """The hold-out split and the held-out fit of the learned and the empty graph."""
+
+    holdout: float
+    seed: int
+    rows_learned: int
+    rows_held_out: int
+    rule: str
+    measure: str | None = None
+    log_likelihood: LogLikelihood
+    unseen: Unseen
+
+
+# --------------------------------------------------------------------------- records
+
+
+class RunRecord(Fixed):
+    """``run.json``, format version 1. The top level is fixed (a new key is a new field
+    here); ``spec`` is free-form: the normalised spec, whose layout ``runner.spec`` owns.
+    ``bootstrap`` and ``evaluation`` are present when the spec has those sections."""
+
+    model_config = ConfigDict(title="dagmill run record")
+
+    format_version: Literal[1]
+    run_id: str
+    spec_name: str
+    spec_path: str
+    spec: dict[str, Any]
+    spec_sha256: Sha256
+    input_sha256: Sha256
+    code_version: str
+    code_sha256: Sha256
+    created_utc: str
+    data: Data
+    seed: int
+    score: Score
+    search: Search
+    edges: list[Edge]
+    graph_sha256: Sha256
+    seconds: Seconds
+    environment: Environment
+    warnings: list[str]
+    caution: str
+    model: ModelReference
+    trace_sha256: Sha256
+    record_sha256: Sha256
+    bootstrap: Bootstrap | None = None
+    evaluation: Evaluation | None = None
+
+
+class BaselineScore(Fixed):
+    name: str
+    ess: float | None
+    value: float
+    per_row: float
+
+
+class BaselineColumn(Fixed):
+    kind: Literal["discrete", "continuous"]
+    states: list[str]
+    binning: Binning | None = None
+
+
+class BaselineData(Fixed):
+    sha256: Sha256
+    rows: int
+    columns: dict[str, BaselineColumn]
+
+
+class BaselineConsensus(Fixed):
+    edges: list[Edge]
+    graph_sha256: Sha256
+    replicates: int
+    threshold: float
+
+
+class Baseline(Fixed):
+    """``baseline.json``, format version 1: the pinned run's identity, hashes, score,
+    edges and data columns (and its bootstrap consensus, if it has one). Fixed layout."""
+
+    model_config = ConfigDict(title="dagmill baseline")
+
+    format_version: Literal[1]
+    run_id: str
+    spec_name: str
+    spec_sha256: Sha256
+    input_sha256: Sha256
+    code_version: str
+    graph_sha256: Sha256
+    score: BaselineScore
+    edges: list[Edge]
+    data: BaselineData
+    pinned_utc: str
+    consensus: BaselineConsensus | None = None
+
+
+class LegacyScore(Open):
+    """A version-0 score block: only the value is checked."""
+
+    value: float
+
+
+class LegacyRunRecord(Open):
+    """``run.json`` from before ``format_version``: open, with the keys readers have
+    always needed checked (the rest was never guaranteed)."""
+
+    edges: list[Edge]
+    graph_sha256: str
+    score: LegacyScore
+
+
+class LegacyBaseline(Open):
+    """``baseline.json`` from before ``format_version``: the keys ``check`` needs."""
+
+    run_id: str
+    input_sha256: str
+    graph_sha256: str
+    score: LegacyScore
+    edges: list[Edge]
+    data: dict[str, Any]
+
+
+# --------------------------------------------------------------------------- checking
+
+
+def dump(model: BaseModel) -> dict[str, Any]:
+    """The dict a model was validated from (as written: aliases, only the keys given)."""
+    return model.model_dump(mode="json", by_alias=True, exclude_unset=True)
+
+
+def _key(loc: tuple[int | str, ...]) -> str:
+    return ".".join(str(part) for part in loc)
+
+
+def _problems(exc: ValidationError, file: str) -> list[Problem]:
+    problems = []
+    for err in exc.errors():
+        value = err.get("input")
+        shown = value if isinstance(value, str | int | float | bool) and \
+            err["type"] != "missing" else None
+        message = err["msg"][0].lower() + err["msg"][1:]
+        if err["type"] == "extra_forbidden":
+            message = "unknown key (not part of this format version)"
+        problems.append(Problem(file, message, key=_key(err["loc"]) or None, value=shown))
+    return problems
+
+
+def _version(doc: dict[str, Any], file: str, what: str) -> int:
+    version = doc.get("format_version", 0)
+    if isinstance(version, int) and not isinstance(version, bool) \
+            and version > FORMAT_VERSION:
+        raise InputError(Problem(file, f"this {what} has format version {version}; this "
+                                 f"dagmill reads versions 0 to {FORMAT_VERSION}: upgrade "
+                                 "dagmill", key="format_version"))
+    return version if version == 0 else FORMAT_VERSION
+
+
+def _check(doc: Any, file: str, what: str, v1: type[BaseModel],
+           v0: type[BaseModel]) -> BaseModel:
+    if not isinstance(doc, dict):
+        raise InputError(Problem(file, f"not a dagmill {what}: a JSON object was expected"))
+    model = v0 if _version(doc, file, what) == 0 else v1
+    try:
+        return model.model_validate(doc)
+    except ValidationError as exc:
+        raise InputError(_problems(exc, file)) from None
+
+
+def check_record(doc: Any, file: str) -> RunRecord | LegacyRunRecord:
+    """``doc`` (a parsed ``run.json``) as its model; InputError naming ``file``, the key
+    path and what is wrong when it does not fit its format version."""
+    found = _check(doc, file, "run record", RunRecord, LegacyRunRecord)
+    assert isinstance(found, RunRecord | LegacyRunRecord)
+    return found
+
+
+def check_baseline(doc: Any, file: str) -> Baseline | LegacyBaseline:
+    """``doc`` (a parsed ``baseline.json``) as its model (see :func:`check_record`)."""
+    found = _check(doc, file, "baseline", Baseline, LegacyBaseline)
+    assert isinstance(found, Baseline | LegacyBaseline)
+    return found
+
+
+def _schema(model: type[BaseModel], description: str) -> dict[str, Any]:
+    return {"$schema": SCHEMA_DIALECT, **model.model_json_schema(by_alias=True),
+            "description": description}
+
+
+def record_json_schema() -> dict[str, Any]:
+    """The JSON Schema (draft 2020-12) of ``run.json``, format version 1."""
+    return _schema(RunRecord, "A dagmill run record (run.json), format version 1: the "
+                   "inputs and their hashes, the score, the search, the learned edges and "
+                   "their graph hash, timings and the environment.")
+
+
+def baseline_json_schema() -> dict[str, Any]:
+    """The JSON Schema (draft 2020-12) of ``baseline.json``, format version 1."""
+    return _schema(Baseline, "A dagmill baseline (baseline.json), format version 1: the "
+                   "pinned run of a spec that `dagmill check` holds new results to.")
