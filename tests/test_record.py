@@ -154,16 +154,22 @@ BROKEN = {
 }
 
 
+def _copy_run(stored: dict[str, Any], name: str, root: Path) -> Path:
+    """A copy of the stored run of spec ``name`` under the results folder ``root``."""
+    source = stored["runs"][name]
+    run = root / name / "runs" / source.name
+    run.mkdir(parents=True)
+    for f in source.iterdir():
+        (run / f.name).write_bytes(f.read_bytes())
+    return run
+
+
 @pytest.mark.parametrize("key", list(BROKEN))
 def test_a_hand_broken_record_is_exit_2_naming_file_and_key(
         stored: dict[str, Any], key: str, tmp_path: Path,
         capsys: pytest.CaptureFixture[str]) -> None:
     root = tmp_path / "results"
-    source = stored["runs"]["kiln-line"]
-    run = root / "kiln-line" / "runs" / source.name
-    run.mkdir(parents=True)
-    for f in source.iterdir():
-        (run / f.name).write_bytes(f.read_bytes())
+    run = _copy_run(stored, "kiln-line", root)
     what, edit = BROKEN[key]
     _break(run / "run.json", edit)
     before = _snapshot(root)
@@ -202,11 +208,7 @@ def test_a_version_0_record_and_baseline_are_still_read(stored: dict[str, Any], 
                                                        capsys: pytest.CaptureFixture[str]
                                                        ) -> None:
     root = tmp_path / "results"
-    source = stored["runs"]["line-boot-eval"]
-    run = root / "line-boot-eval" / "runs" / source.name
-    run.mkdir(parents=True)
-    for f in source.iterdir():
-        (run / f.name).write_bytes(f.read_bytes())
+    run = _copy_run(stored, "line-boot-eval", root)
     doc = _as_version_0(run / "run.json")
     assert read_run(run) == doc
     baseline = root / "line-boot-eval" / "baseline.json"
