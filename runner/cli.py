@@ -105,9 +105,9 @@ def _parser() -> argparse.ArgumentParser:
                        "record or a baseline")
     which = p.add_mutually_exclusive_group()
     which.add_argument("--record", action="store_true",
-                       help="the schema of run.json (format version 1)")
+                       help="the schema of run.json (format version 2)")
     which.add_argument("--baseline", action="store_true",
-                       help="the schema of baseline.json (format version 1)")
+                       help="the schema of baseline.json (format version 2)")
 
     p = sub.add_parser("export", help="a run's learned graph as GraphML, DOT or JSON")
     p.add_argument("run", metavar="RUN")
@@ -123,6 +123,20 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--show-forbidden", action="store_true",
                    help="also draw the spec's forbidden pairs")
     p.add_argument("--results")
+
+    p = sub.add_parser("verify", help="check every stored record, model, trace, baseline, "
+                       "the chain of runs and (with --public-key) their signatures")
+    p.add_argument("specs", nargs="*", metavar="SPEC",
+                   help="spec files or spec names (default: every spec in the results folder)")
+    p.add_argument("--public-key", metavar="FILE",
+                   help="an Ed25519 public key (PEM): every record and baseline must be "
+                   "signed by its private key")
+    p.add_argument("--results")
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("keygen", help="write an Ed25519 key pair for signing records into DIR")
+    p.add_argument("dir", metavar="DIR")
+    p.add_argument("--json", action="store_true")
 
     p = sub.add_parser("demo", help="copy the kiln-line scenario into DIR and run it")
     p.add_argument("dir", nargs="?", default="dagmill-demo", metavar="DIR")
@@ -408,16 +422,70 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_verify(args: argparse.Namespace) -> int:
+    from runner.audit import stored_specs, verify_spec
+    from runner.signing import load_public_key
+
+    root = results_root(args.results)
+    key = None if args.public_key is None else load_public_key(args.public_key)
+    names = [_spec_name(ref) for ref in args.specs] or stored_specs(root)
+    missing = [n for n in names if not (root / n).is_dir()]
+    if missing or not names:
+        raise InputError(Problem(str(root), "nothing stored to verify" if not names else
+                                 f"no stored runs of spec {missing[0]!r}", key="SPEC"))
+    audits = [verify_spec(root, name, key) for name in names]
+    ok = all(a.ok for a in audits)
+    if args.json:
+        print(json.dumps({"ok": ok, "results": str(root), "signatures_checked": key is not None,
+                          "specs": [a.as_dict() for a in audits]}, indent=2, sort_keys=True))
+        return 0 if ok else 1
+    for audit in audits:
+        signed = (f", {audit.signed} signed" if key is None else
+                  ", signatures checked") if audit.signed or key is not None else ""
+        print(f"{audit.spec_name}: {audit.runs} run(s), {audit.sealed} chained{signed}; "
+              f"baseline: {audit.baseline}: {'ok' if audit.ok else 'PROBLEMS'}")
+        for finding in audit.problems:
+            print(f"  {finding.file}: {finding.problem}")
+        for note in audit.notes:
+            print(f"  note: {note}")
+    print(f"{sum(a.ok for a in audits)} of {len(audits)} spec(s) verified"
+          + ("" if key is not None else "; signatures not checked (no --public-key)"))
+    return 0 if ok else 1
+
+
+def _cmd_keygen(args: argparse.Namespace) -> int:
+    from runner.signing import KEY_ENV, generate_key_pair
+
+    private, public = generate_key_pair(Path(args.dir))
+    if args.json:
+        print(json.dumps({"private_key": str(private), "public_key": str(public)},
+                         indent=2, sort_keys=True))
+        return 0
+    print(f"private key: {private} (keep it out of the repository; set {KEY_ENV} to its "
+          "path to sign)")
+    print(f"public key:  {public} (commit it; `dagmill verify --public-key` checks with it)")
+    return 0
+
+
+def _check_signing_key() -> None:
+    """A signing key named by the environment is loaded before any work (bad: exit 2)."""
+    from runner.signing import signer_from_environment
+
+    signer_from_environment()
+
+
 COMMANDS = {"export": _cmd_export, "validate": _cmd_validate, "run": _cmd_run, "show": _cmd_show,
             "compare": _cmd_compare, "pin": _cmd_pin, "check": _cmd_check,
             "history": _cmd_history, "schema": _cmd_schema, "demo": _cmd_demo,
-            "report": _cmd_report}
+            "report": _cmd_report, "verify": _cmd_verify, "keygen": _cmd_keygen}
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the console script; returns the exit code."""
     try:
         args = _parser().parse_args(argv)
+        if args.command in ("run", "check", "pin"):
+            _check_signing_key()
         return COMMANDS[args.command](args)
     except InputError as exc:
         for problem in exc.problems:

@@ -416,7 +416,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     model, fitted = fit_model(part.dataset, gaussian, outcome.parent_sets, pseudo_count,
                               graph_sha256(edges))
     record: dict[str, Any] = {
-        "format_version": 1,  # runner.record.FORMAT_VERSION
+        "format_version": 2,  # runner.record.FORMAT_VERSION
         "run_id": None,
         "spec_name": spec.name,
         "spec_path": prepared.spec_display,

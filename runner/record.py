@@ -2,7 +2,10 @@
 (:class:`Baseline`) as pydantic models, checked where the store writes and reads them.
 
 Versions. A record or baseline carries ``format_version``; this module describes version
-1. Files written before the key existed are version 0: they are read with the looser
+2 (sealed, chained and optionally signed: see :class:`RunRecord` and :class:`Baseline`).
+Version 1 (a sealed record without the chain; an unsealed baseline) is still read, with
+:class:`RunRecordV1` / :class:`BaselineV1`, and shown as legacy. Files written before
+the key existed are version 0: they are read with the looser
 :class:`LegacyRunRecord` / :class:`LegacyBaseline`, which check only what every reader has
 always needed (the edges, their graph hash, the score's value; a baseline's identity),
 and let everything else through as it is. A ``format_version`` this module does not know
@@ -33,7 +36,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from runner.errors import InputError, Problem
 
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
 
 Edge = Annotated[list[str], Field(min_length=2, max_length=2,
@@ -262,14 +265,18 @@ class Evaluation(Fixed):
 # --------------------------------------------------------------------------- records
 
 
-class RunRecord(Fixed):
-    """``run.json``, format version 1. The top level is fixed (a new key is a new field
-    here); ``spec`` is free-form: the normalised spec, whose layout ``runner.spec`` owns.
-    ``bootstrap`` and ``evaluation`` are present when the spec has those sections."""
+class Signature(Fixed):
+    """An Ed25519 signature (Bernstein et al. 2012, RFC 8032) over the 32 bytes of the
+    document's own hash (``record_sha256`` of a run, ``baseline_sha256`` of a baseline)."""
 
-    model_config = ConfigDict(title="dagmill run record")
+    algorithm: Literal["ed25519"]
+    public_key_sha256: Sha256 = Field(description="sha256 of the raw 32-byte public key")
+    value: str = Field(description="the 64-byte signature, base64")
 
-    format_version: Literal[1]
+
+class _RunBody(Fixed):
+    """The keys every sealed run record has (versions 1 and 2)."""
+
     run_id: str
     spec_name: str
     spec_path: str
@@ -294,6 +301,31 @@ class RunRecord(Fixed):
     record_sha256: Sha256
     bootstrap: Bootstrap | None = None
     evaluation: Evaluation | None = None
+
+
+class RunRecordV1(_RunBody):
+    """``run.json``, format version 1: sealed by ``record_sha256`` but not chained."""
+
+    model_config = ConfigDict(title="dagmill run record, format version 1")
+
+    format_version: Literal[1]
+
+
+class RunRecord(_RunBody):
+    """``run.json``, format version 2. The top level is fixed (a new key is a new field
+    here); ``spec`` is free-form: the normalised spec, whose layout ``runner.spec`` owns.
+    ``bootstrap`` and ``evaluation`` are present when the spec has those sections.
+
+    ``record_sha256`` seals every other key except ``signature``;
+    ``previous_record_sha256`` chains the record to the spec's previous stored run in the
+    same results folder (null for the first), so a deleted or inserted run shows;
+    ``signature`` is present when the run was stored with a signing key."""
+
+    model_config = ConfigDict(title="dagmill run record")
+
+    format_version: Literal[2]
+    previous_record_sha256: Sha256 | None
+    signature: Signature | None = None
 
 
 class BaselineScore(Fixed):
@@ -322,13 +354,7 @@ class BaselineConsensus(Fixed):
     threshold: float
 
 
-class Baseline(Fixed):
-    """``baseline.json``, format version 1: the pinned run's identity, hashes, score,
-    edges and data columns (and its bootstrap consensus, if it has one). Fixed layout."""
-
-    model_config = ConfigDict(title="dagmill baseline")
-
-    format_version: Literal[1]
+class _BaselineBody(Fixed):
     run_id: str
     spec_name: str
     spec_sha256: Sha256
@@ -340,6 +366,30 @@ class Baseline(Fixed):
     data: BaselineData
     pinned_utc: str
     consensus: BaselineConsensus | None = None
+
+
+class BaselineV1(_BaselineBody):
+    """``baseline.json``, format version 1: not sealed (read, marked legacy)."""
+
+    model_config = ConfigDict(title="dagmill baseline, format version 1")
+
+    format_version: Literal[1]
+
+
+class Baseline(_BaselineBody):
+    """``baseline.json``, format version 2: the pinned run's identity, hashes, score,
+    edges and data columns (and its bootstrap consensus, if it has one). Fixed layout.
+
+    Sealed: ``baseline_sha256`` covers every other key except ``signature``, and
+    ``record_sha256`` is the pinned run's own seal; readers check both, and that the run
+    still exists, matches that seal and gives exactly this baseline."""
+
+    model_config = ConfigDict(title="dagmill baseline")
+
+    format_version: Literal[2]
+    record_sha256: Sha256
+    baseline_sha256: Sha256
+    signature: Signature | None = None
 
 
 class LegacyScore(Open):
@@ -400,33 +450,43 @@ def _version(doc: dict[str, Any], file: str, what: str) -> int:
         raise InputError(Problem(file, f"this {what} has format version {version}; this "
                                  f"dagmill reads versions 0 to {FORMAT_VERSION}: upgrade "
                                  "dagmill", key="format_version"))
-    return version if version == 0 else FORMAT_VERSION
+    return version if version in (0, 1) else FORMAT_VERSION
 
 
-def _check(doc: Any, file: str, what: str, v1: type[BaseModel],
-           v0: type[BaseModel]) -> BaseModel:
+def _check(doc: Any, file: str, what: str,
+           models: tuple[type[BaseModel], type[BaseModel], type[BaseModel]]) -> BaseModel:
     if not isinstance(doc, dict):
         raise InputError(Problem(file, f"not a dagmill {what}: a JSON object was expected"))
-    model = v0 if _version(doc, file, what) == 0 else v1
+    model = models[_version(doc, file, what)]
     try:
         return model.model_validate(doc)
     except ValidationError as exc:
         raise InputError(_problems(exc, file)) from None
 
 
-def check_record(doc: Any, file: str) -> RunRecord | LegacyRunRecord:
+AnyRunRecord = RunRecord | RunRecordV1 | LegacyRunRecord
+AnyBaseline = Baseline | BaselineV1 | LegacyBaseline
+
+
+def check_record(doc: Any, file: str) -> AnyRunRecord:
     """``doc`` (a parsed ``run.json``) as its model; InputError naming ``file``, the key
     path and what is wrong when it does not fit its format version."""
-    found = _check(doc, file, "run record", RunRecord, LegacyRunRecord)
-    assert isinstance(found, RunRecord | LegacyRunRecord)
+    found = _check(doc, file, "run record", (LegacyRunRecord, RunRecordV1, RunRecord))
+    assert isinstance(found, AnyRunRecord)
     return found
 
 
-def check_baseline(doc: Any, file: str) -> Baseline | LegacyBaseline:
+def check_baseline(doc: Any, file: str) -> AnyBaseline:
     """``doc`` (a parsed ``baseline.json``) as its model (see :func:`check_record`)."""
-    found = _check(doc, file, "baseline", Baseline, LegacyBaseline)
-    assert isinstance(found, Baseline | LegacyBaseline)
+    found = _check(doc, file, "baseline", (LegacyBaseline, BaselineV1, Baseline))
+    assert isinstance(found, AnyBaseline)
     return found
+
+
+def format_version(doc: Any) -> int:
+    """The format version a parsed record or baseline declares (0 when it has none)."""
+    version = doc.get("format_version", 0) if isinstance(doc, dict) else 0
+    return version if isinstance(version, int) and not isinstance(version, bool) else 0
 
 
 def _schema(model: type[BaseModel], description: str) -> dict[str, Any]:
@@ -435,13 +495,13 @@ def _schema(model: type[BaseModel], description: str) -> dict[str, Any]:
 
 
 def record_json_schema() -> dict[str, Any]:
-    """The JSON Schema (draft 2020-12) of ``run.json``, format version 1."""
-    return _schema(RunRecord, "A dagmill run record (run.json), format version 1: the "
+    """The JSON Schema (draft 2020-12) of ``run.json``, format version 2."""
+    return _schema(RunRecord, "A dagmill run record (run.json), format version 2: the "
                    "inputs and their hashes, the score, the search, the learned edges and "
                    "their graph hash, timings and the environment.")
 
 
 def baseline_json_schema() -> dict[str, Any]:
-    """The JSON Schema (draft 2020-12) of ``baseline.json``, format version 1."""
-    return _schema(Baseline, "A dagmill baseline (baseline.json), format version 1: the "
+    """The JSON Schema (draft 2020-12) of ``baseline.json``, format version 2."""
+    return _schema(Baseline, "A dagmill baseline (baseline.json), format version 2: the "
                    "pinned run of a spec that `dagmill check` holds new results to.")

@@ -16,10 +16,20 @@ Both files have a typed layout (``runner.record``): the writers validate a recor
 baseline through its model before writing (a record that does not fit is a bug, raised
 as ``ValueError``), and the readers validate what they read (a file that does not fit is
 an ``InputError`` naming the file and the key path). Readers still return plain dicts.
+
+Seals. A record carries ``record_sha256`` (every other key but ``signature``), the
+sha256 of its trace and model files, and ``previous_record_sha256``: the seal of the
+spec's latest run stored before it in this results folder (null for the first), so the
+runs of a spec form a chain in the order they were stored (the store takes a lock on the
+spec's ``runs/`` folder while it links and lands a run). A baseline carries its own
+``baseline_sha256`` and the pinned run's ``record_sha256``; reading it checks both, and
+that the run is still there and gives exactly this baseline. With ``$DAGMILL_SIGNING_KEY``
+set, both are signed (``runner.signing``).
 """
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import hashlib
 import io
@@ -27,13 +37,19 @@ import json
 import os
 import re
 import tempfile
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
 from runner.errors import InputError, Problem
 from runner.graph import graph_sha256
-from runner.record import FORMAT_VERSION, check_baseline, check_record
+from runner.record import FORMAT_VERSION, check_baseline, check_record, format_version
+from runner.signing import Signer, signer_from_environment
+
+try:
+    import fcntl
+except ImportError:  # pragma: no cover - not on POSIX: runs are still atomic, not locked
+    fcntl = None  # type: ignore[assignment]  # the lock is skipped where fcntl is missing
 
 RESULTS_ENV = "DAGMILL_RESULTS"
 RUN_ID = re.compile(r"^\d{8}T\d{6}Z-[0-9a-f]{10}(-\d+)?$")
@@ -97,19 +113,83 @@ def model_reference(model: dict[str, Any]) -> dict[str, Any]:
 
 
 RECORD_HASH_KEY = "record_sha256"
+#: run.json keys that legitimately differ between two runs of the same inputs: the time
+#: (in the run id too), the timings, the hashes over them, the chain and the signature.
+VOLATILE_KEYS = ("run_id", "created_utc", "seconds", "record_sha256",
+                 "previous_record_sha256", "signature")
+BASELINE_HASH_KEY = "baseline_sha256"
+PREVIOUS_KEY = "previous_record_sha256"
+SIGNATURE_KEY = "signature"
 
 
 def record_sha256(record: dict[str, Any]) -> str:
-    """The sha256 of a record's stored JSON without its own ``record_sha256`` key."""
-    return sha256_text(dump_json({k: v for k, v in record.items() if k != RECORD_HASH_KEY}))
+    """The sha256 of a record's stored JSON without its own ``record_sha256`` key and
+    without its ``signature`` (which signs this hash)."""
+    return sha256_text(dump_json({k: v for k, v in record.items()
+                                  if k not in (RECORD_HASH_KEY, SIGNATURE_KEY)}))
 
 
-def sealed(record: dict[str, Any], trace: str) -> dict[str, Any]:
-    """The record with ``trace_sha256`` (of trace.csv) and ``record_sha256`` (of every
-    other key, so of the model's and the trace's hashes too) added."""
-    out = {**record, "trace_sha256": sha256_text(trace)}
-    out.pop(RECORD_HASH_KEY, None)
-    return {**out, RECORD_HASH_KEY: record_sha256(out)}
+def baseline_sha256(doc: dict[str, Any]) -> str:
+    """The sha256 of a baseline's stored JSON without ``baseline_sha256`` and
+    ``signature``."""
+    return sha256_text(dump_json({k: v for k, v in doc.items()
+                                  if k not in (BASELINE_HASH_KEY, SIGNATURE_KEY)}))
+
+
+def sealed(record: dict[str, Any], trace: str, previous: str | None,
+           signer: Signer | None = None) -> dict[str, Any]:
+    """The record with ``trace_sha256`` (of trace.csv), ``previous_record_sha256`` (the
+    chain), ``record_sha256`` (of every other key, so of the model's and the trace's
+    hashes too) and, with a signer, the ``signature`` of that hash added."""
+    out = {k: v for k, v in record.items() if k not in (RECORD_HASH_KEY, SIGNATURE_KEY)}
+    out.update(trace_sha256=sha256_text(trace), previous_record_sha256=previous)
+    out[RECORD_HASH_KEY] = record_sha256(out)
+    if signer is not None:
+        out[SIGNATURE_KEY] = signer.sign(out[RECORD_HASH_KEY])
+    return out
+
+
+@contextlib.contextmanager
+def _chain_lock(runs: Path) -> Iterator[None]:
+    """Hold an exclusive lock on a spec's ``runs/`` folder (the folder itself, so no lock
+    file is left to commit): linking a run to the latest one and landing it is one step."""
+    if fcntl is None:  # pragma: no cover
+        yield
+        return
+    fd = os.open(runs, os.O_RDONLY)
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        yield
+    finally:
+        os.close(fd)  # closing the descriptor releases the lock
+
+
+def _raw_records(runs: Path) -> list[tuple[Path, dict[str, Any]]]:
+    """Every run folder in ``runs/`` with its parsed ``run.json`` (unchecked), by run id;
+    folders whose record cannot be parsed are left out."""
+    if not runs.is_dir():
+        return []
+    out = []
+    for folder in sorted(p for p in runs.iterdir() if p.is_dir() and RUN_ID.match(p.name)):
+        try:
+            doc = json.loads((folder / "run.json").read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+            continue
+        if isinstance(doc, dict):
+            out.append((folder, doc))
+    return out
+
+
+def chain_head(runs: Path) -> str | None:
+    """The ``record_sha256`` the next run of this spec chains to: that of the latest run
+    stored (the sealed run no other run names as its previous; the latest by run id if
+    there are several, which only an edit of the folder makes). None for the first run.
+    The records' content is not checked here (``dagmill verify`` does)."""
+    sealed_runs = [doc for _, doc in _raw_records(runs)
+                   if isinstance(doc.get(RECORD_HASH_KEY), str)]
+    named = {doc.get(PREVIOUS_KEY) for doc in sealed_runs}
+    heads = [doc[RECORD_HASH_KEY] for doc in sealed_runs if doc[RECORD_HASH_KEY] not in named]
+    return heads[-1] if heads else None
 
 
 def _valid(check: Callable[[Any, str], object], doc: dict[str, Any], what: str) -> None:
@@ -121,38 +201,50 @@ def _valid(check: Callable[[Any, str], object], doc: dict[str, Any], what: str) 
 
 
 def write_run(root: Path, record: dict[str, Any], trace: str,
-              model: dict[str, Any] | None = None) -> tuple[str, Path]:
-    """Store a run (and its fitted model, if given); return its final run id (a suffix is
-    added on a same-second clash)."""
+              model: dict[str, Any] | None = None,
+              signer: Signer | None = None) -> tuple[str, Path]:
+    """Store a run (and its fitted model, if given), chained to the spec's latest stored
+    run and signed by ``signer`` (default: the key ``$DAGMILL_SIGNING_KEY`` names, if any);
+    return its final run id (a suffix is added on a same-second clash)."""
+    if signer is None:
+        signer = signer_from_environment()
     runs = root / record["spec_name"] / "runs"
     runs.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=".incoming-", dir=runs))
     try:
-        base_id = record["run_id"]
-        for attempt in range(1, 1000):
-            run_id = base_id if attempt == 1 else f"{base_id}-{attempt}"
-            record = sealed({**record, "run_id": run_id}, trace)
-            _valid(check_record, record, "run record")
-            (staging / "run.json").write_text(dump_json(record), encoding="utf-8")
-            (staging / "trace.csv").write_text(trace, encoding="utf-8")
-            if model is not None:
-                (staging / MODEL_FILE).write_text(dump_json(model), encoding="utf-8")
-            final = runs / run_id
-            if final.exists():
-                continue
-            try:
-                os.rename(staging, final)
-            except OSError:
-                if final.exists():
-                    continue
-                raise
-            return run_id, final
-        raise RuntimeError("could not find a free run id")  # pragma: no cover
+        with _chain_lock(runs):
+            return _land(runs, staging, record, trace, model, signer)
     finally:
         if staging.exists():
             for child in staging.iterdir():
                 child.unlink()
             staging.rmdir()
+
+
+def _land(runs: Path, staging: Path, record: dict[str, Any], trace: str,
+          model: dict[str, Any] | None, signer: Signer | None) -> tuple[str, Path]:
+    """Seal the record into ``staging`` and rename it into place under a free run id."""
+    previous = chain_head(runs)
+    base_id = record["run_id"]
+    for attempt in range(1, 1000):
+        run_id = base_id if attempt == 1 else f"{base_id}-{attempt}"
+        final = runs / run_id
+        if final.exists():
+            continue
+        out = sealed({**record, "run_id": run_id}, trace, previous, signer)
+        _valid(check_record, out, "run record")
+        (staging / "run.json").write_text(dump_json(out), encoding="utf-8")
+        (staging / "trace.csv").write_text(trace, encoding="utf-8")
+        if model is not None:
+            (staging / MODEL_FILE).write_text(dump_json(model), encoding="utf-8")
+        try:
+            os.rename(staging, final)
+        except OSError:
+            if final.exists():
+                continue
+            raise
+        return run_id, final
+    raise RuntimeError("could not find a free run id")  # pragma: no cover
 
 
 def list_runs(root: Path, spec_name: str) -> list[Path]:
@@ -286,8 +378,9 @@ def baseline_path(root: Path, spec_name: str) -> Path:
 
 
 def baseline_from_record(record: dict[str, Any], pinned_utc: str) -> dict[str, Any]:
-    """The baseline document of a run: its id and hashes, score, edges and data columns
-    (the columns let ``check`` report state changes even when the run folder is gone)."""
+    """The baseline document of a run (unsealed): its id and hashes, score, edges and data
+    columns (the columns let ``check`` report state changes even when the run folder is
+    gone), and the run's own seal."""
     score = record["score"]
     data = record["data"]
     return {
@@ -298,6 +391,7 @@ def baseline_from_record(record: dict[str, Any], pinned_utc: str) -> dict[str, A
         "input_sha256": record["input_sha256"],
         "code_version": record["code_version"],
         "graph_sha256": record["graph_sha256"],
+        "record_sha256": record.get(RECORD_HASH_KEY),
         "score": {"name": score["name"], "ess": score.get("ess"), "value": score["value"],
                   "per_row": score["per_row"]},
         "edges": [list(e) for e in record["edges"]],
@@ -308,6 +402,15 @@ def baseline_from_record(record: dict[str, Any], pinned_utc: str) -> dict[str, A
         "pinned_utc": pinned_utc,
         **_consensus_of(record),
     }
+
+
+def seal_baseline(doc: dict[str, Any], signer: Signer | None = None) -> dict[str, Any]:
+    """The baseline with its ``baseline_sha256`` (and, with a signer, its signature)."""
+    out = {k: v for k, v in doc.items() if k not in (BASELINE_HASH_KEY, SIGNATURE_KEY)}
+    out[BASELINE_HASH_KEY] = baseline_sha256(out)
+    if signer is not None:
+        out[SIGNATURE_KEY] = signer.sign(out[BASELINE_HASH_KEY])
+    return out
 
 
 def _consensus_of(record: dict[str, Any]) -> dict[str, Any]:
@@ -321,9 +424,17 @@ def _consensus_of(record: dict[str, Any]) -> dict[str, Any]:
                           "replicates": boot["replicates"], "threshold": boot["threshold"]}}
 
 
+_REPIN = "restore it from version control or re-pin with `dagmill pin RUN`"
+
+
 def read_baseline(root: Path, spec_name: str) -> dict[str, Any] | None:
-    """The spec's baseline, or None when none is pinned; a baseline whose edges do not
-    match its graph hash, or that is unreadable, is refused (InputError)."""
+    """The spec's baseline, or None when none is pinned.
+
+    A sealed baseline (format version 2) is checked against its ``baseline_sha256``, and
+    its pinned run must still be stored, match the baseline's ``record_sha256`` and give
+    exactly this baseline (so an edited baseline is refused even with a recomputed seal).
+    Older baselines are checked against their graph hash only. Raises InputError naming
+    the file for anything that does not hold."""
     path = baseline_path(root, spec_name)
     try:
         doc = json.loads(path.read_text(encoding="utf-8"))
@@ -338,26 +449,66 @@ def read_baseline(root: Path, spec_name: str) -> dict[str, Any] | None:
                                                  "to replace it")]) from None
     if graph_sha256(doc["edges"]) != doc["graph_sha256"]:
         raise InputError(Problem(str(path), "baseline content does not match its graph_sha256: "
-                                 "the edges were edited by hand; restore it from version "
-                                 "control or re-pin with `dagmill pin RUN`", key="edges"))
+                                 f"the edges were edited by hand; {_REPIN}", key="edges"))
     cons = doc.get("consensus")
     if cons is not None and (not isinstance(cons, dict)
                              or graph_sha256(cons.get("edges", [])) != cons.get("graph_sha256")):
         raise InputError(Problem(str(path), "the baseline's consensus edges do not match their "
-                                 "graph_sha256; restore it from version control or re-pin with "
-                                 "`dagmill pin RUN`", key="consensus.edges"))
+                                 f"graph_sha256; {_REPIN}", key="consensus.edges"))
+    if format_version(doc) >= 2:
+        _check_sealed_baseline(root, path, doc)
     return doc
 
 
-def write_baseline(root: Path, record: dict[str, Any],
-                   pinned_utc: str) -> tuple[dict[str, Any], dict[str, Any] | None, Path]:
-    """Make ``record`` the baseline of its spec (atomically); return the new baseline,
-    the one it replaced (None if none; an unreadable old one is replaced too) and the path."""
+def _check_sealed_baseline(root: Path, path: Path, doc: dict[str, Any]) -> None:
+    """The seal of a version-2 baseline and its agreement with the pinned run."""
+    if baseline_sha256(doc) != doc[BASELINE_HASH_KEY]:
+        raise InputError(Problem(str(path), "baseline content does not match its "
+                                 f"baseline_sha256: it was edited by hand; {_REPIN}",
+                                 key=BASELINE_HASH_KEY))
+    folder = root / doc["spec_name"] / "runs" / doc["run_id"]
+    if not (folder / "run.json").is_file():
+        raise InputError(Problem(str(path), f"the pinned run {doc['run_id']} is no longer "
+                                 f"stored ({folder} is missing); restore the run from version "
+                                 "control or pin another run", key="run_id"))
+    try:
+        record = read_run(folder)
+    except InputError as exc:
+        raise InputError([*exc.problems, Problem(str(path), "the pinned run does not pass "
+                                                 "its own checks", key="run_id")]) from None
+    if record.get(RECORD_HASH_KEY) != doc[RECORD_HASH_KEY]:
+        raise InputError(Problem(str(path), f"the pinned run {doc['run_id']} is not the run "
+                                 "that was pinned (its record_sha256 differs); "
+                                 f"{_REPIN}", key=RECORD_HASH_KEY))
+    expected = baseline_from_record(record, doc["pinned_utc"])
+    stored = {k: v for k, v in doc.items() if k not in (BASELINE_HASH_KEY, SIGNATURE_KEY)}
+    if dump_json(expected) != dump_json(stored):
+        keys = sorted(k for k in expected.keys() | stored.keys()
+                      if dump_json(expected.get(k)) != dump_json(stored.get(k)))
+        raise InputError(Problem(str(path), "the baseline does not agree with its pinned run "
+                                 f"(differs in {', '.join(keys)}): it was edited; {_REPIN}",
+                                 key=keys[0]))
+
+
+def write_baseline(root: Path, record: dict[str, Any], pinned_utc: str,
+                   signer: Signer | None = None,
+                   ) -> tuple[dict[str, Any], dict[str, Any] | None, Path]:
+    """Make ``record`` the baseline of its spec (atomically, sealed, and signed by
+    ``signer``, default the key ``$DAGMILL_SIGNING_KEY`` names, if any); return the new
+    baseline, the one it replaced (None if none; an unreadable old one is replaced too)
+    and the path."""
+    if RECORD_HASH_KEY not in record:
+        raise InputError(Problem(record.get("spec_path") or record["spec_name"],
+                                 f"run {record.get('run_id')} has no record_sha256 (a legacy "
+                                 "record, written before records were sealed): re-run the "
+                                 "spec and pin the new run", key="run"))
+    if signer is None:
+        signer = signer_from_environment()
     try:
         old = read_baseline(root, record["spec_name"])
     except InputError:
         old = None
-    new = baseline_from_record(record, pinned_utc)
+    new = seal_baseline(baseline_from_record(record, pinned_utc), signer)
     _valid(check_baseline, new, "baseline")
     path = baseline_path(root, record["spec_name"])
     atomic_write_text(path, dump_json(new))

@@ -19,7 +19,6 @@ from runner import compare
 from runner.errors import InputError
 from runner.graph import graph_sha256
 from runner.pipeline import run_spec
-from runner.store import baseline_path, read_baseline, write_baseline
 
 REPO = Path(__file__).resolve().parents[1]
 COLUMNS = {n: {"kind": "discrete", "states": ["0", "1"]} for n in "abcd"}
@@ -192,25 +191,6 @@ def test_junit_xml_parses_with_one_case_per_spec() -> None:
 
 
 # --------------------------------------------------------------------------- store
-
-
-def test_baseline_round_trip_replace_and_hand_edit(tmp_path: Path) -> None:
-    first = record([["a", "b"]])
-    new, old, path = write_baseline(tmp_path, first, "2026-12-01T00:00:00Z")
-    assert old is None and path == baseline_path(tmp_path, "toy")
-    assert read_baseline(tmp_path, "toy") == new
-    assert path.read_text().endswith("}\n") and not list(path.parent.glob(".*tmp"))
-    second = record([["a", "b"], ["b", "c"]], run_id="20261201T000001Z-1111111111")
-    _, old, _ = write_baseline(tmp_path, second, "2026-12-01T00:00:01Z")
-    assert old == new
-    lines = compare.baseline_changes(old, read_baseline(tmp_path, "toy"))
-    assert lines[0] == f"replaces baseline {first['run_id']}" and "edge added b -> c" in lines
-    doc = json.loads(path.read_text())
-    doc["edges"] = [["a", "b"]]
-    path.write_text(json.dumps(doc))
-    with pytest.raises(InputError, match="edited by hand"):
-        read_baseline(tmp_path, "toy")
-    assert read_baseline(tmp_path, "nothing") is None
 
 
 # --------------------------------------------------------------------------- rescoring

@@ -18,7 +18,7 @@ from conftest import BOOT, CliCall, ProcessCall, write_case
 from runner.engines import DaskEngine, InProcess, LocalPool, choose_engine, default_workers
 from runner.errors import InputError
 from runner.pipeline import learn, prepare
-from runner.store import dump_json
+from runner.store import VOLATILE_KEYS, dump_json
 
 
 def comparable(record: dict[str, Any]) -> str:
@@ -26,7 +26,7 @@ def comparable(record: dict[str, Any]) -> str:
     creation time, the timings and (for a stored record) the record's own hash, which
     covers those two (the run id is not set before storing)."""
     return dump_json({k: v for k, v in record.items()
-                      if k not in ("created_utc", "seconds", "record_sha256")})
+                      if k not in VOLATILE_KEYS})
 
 
 def free_port() -> int:

@@ -51,7 +51,7 @@ import runner
 from runner import environment as numeric
 from runner.environment import environment, numeric_environment
 from runner.pipeline import RunResult, learn, prepare
-from runner.store import dump_json
+from runner.store import VOLATILE_KEYS, dump_json
 
 PACKAGE_PARENT = Path(runner.__file__).resolve().parent.parent
 SPECS = PACKAGE_PARENT / "specs"
@@ -238,10 +238,7 @@ def variants() -> list[Variant]:
 # --------------------------------------------------------------------------- running
 
 
-#: run.json keys that legitimately differ between two runs of the same inputs: the time
-#: (in the run id too), the timings, and the hashes over them.
-VOLATILE = ("run_id", "created_utc", "seconds", "record_sha256", "previous_record_sha256",
-            "signature")
+VOLATILE = VOLATILE_KEYS
 
 
 def comparable_record(text: str) -> str:

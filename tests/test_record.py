@@ -7,6 +7,7 @@ path, and nothing stored changes; records from before `format_version` are still
 from __future__ import annotations
 
 import json
+import shutil
 from pathlib import Path
 from typing import Any
 
@@ -185,9 +186,8 @@ def test_a_hand_broken_record_is_exit_2_naming_file_and_key(
 def test_a_hand_broken_baseline_is_refused_naming_the_key(stored: dict[str, Any],
                                                         tmp_path: Path) -> None:
     root = tmp_path / "results"
+    shutil.copytree(stored["root"], root)
     path = root / "kiln-line" / "baseline.json"
-    path.parent.mkdir(parents=True)
-    path.write_bytes((stored["root"] / "kiln-line" / "baseline.json").read_bytes())
     assert read_baseline(root, "kiln-line") is not None
     _break(path, lambda d: d["score"].update(per_row="high"))
     with pytest.raises(InputError, match=r"baseline\.json: score\.per_row: input should be"):
