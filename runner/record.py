@@ -277,30 +277,48 @@ class Signature(Fixed):
 class _RunBody(Fixed):
     """The keys every sealed run record has (versions 1 and 2)."""
 
-    run_id: str
-    spec_name: str
-    spec_path: str
-    spec: dict[str, Any]
-    spec_sha256: Sha256
-    input_sha256: Sha256
-    code_version: str
-    code_sha256: Sha256
-    created_utc: str
-    data: Data
-    seed: int
-    score: Score
-    search: Search
-    edges: list[Edge]
-    graph_sha256: Sha256
-    seconds: Seconds
-    environment: Environment
-    warnings: list[str]
-    caution: str
-    model: ModelReference
-    trace_sha256: Sha256
-    record_sha256: Sha256
-    bootstrap: Bootstrap | None = None
-    evaluation: Evaluation | None = None
+    run_id: str = Field(
+        description="`<UTC time>-<first 10 hex of input_sha256>`, the run folder's name")
+    spec_name: str = Field(description="the spec's `name`: the results subfolder")
+    spec_path: str = Field(
+        description="the spec file, relative to the results folder's parent (or as given)")
+    spec: dict[str, Any] = Field(
+        description="the normalised spec (defaults filled in, seed override applied)")
+    spec_sha256: Sha256 = Field(description="sha256 of the normalised spec")
+    input_sha256: Sha256 = Field(
+        description="sha256 of the spec hash, the data hash and the code version: twins share it")
+    code_version: str = Field(
+        description="package version plus a hash of the package's source files")
+    code_sha256: Sha256 = Field(description="sha256 of the package's source files")
+    created_utc: str = Field(description="when the run was stored")
+    data: Data = Field(
+        description="the data file: path, sha256, rows, dropped rows and each column's kind and "
+                    "states")
+    seed: int = Field(description="the search seed used")
+    score: Score = Field(
+        description="name, total value, value per row, each family's score, score-equivalence")
+    search: Search = Field(
+        description="method, start, seed, stop reason, steps, evaluations, cache hits, parameters, "
+                    "phases")
+    edges: list[Edge] = Field(description="the learned DAG's edges, sorted `[from, to]` pairs")
+    graph_sha256: Sha256 = Field(description="sha256 of the canonical edge list")
+    seconds: Seconds = Field(description="timings: search, total (and bootstrap)")
+    environment: Environment = Field(
+        description="Python and library versions, platform, the numeric environment")
+    warnings: list[str] = Field(description="warnings the run printed")
+    caution: str = Field(description="what the learned structure is and is not evidence of")
+    model: ModelReference = Field(
+        description="the fitted model file beside run.json: name, sha256, estimator")
+    trace_sha256: Sha256 = Field(description="sha256 of trace.csv")
+    record_sha256: Sha256 = Field(
+        description="sha256 of this record without this key and `signature`")
+    bootstrap: Bootstrap | None = Field(
+        default=None,
+        description="edge frequencies and the consensus network (with a bootstrap section)")
+    evaluation: Evaluation | None = Field(
+        default=None,
+        description="the hold-out split and held-out log-likelihoods (with an evaluation "
+                    "section)")
 
 
 class RunRecordV1(_RunBody):
@@ -323,9 +341,11 @@ class RunRecord(_RunBody):
 
     model_config = ConfigDict(title="dagmill run record")
 
-    format_version: Literal[2]
-    previous_record_sha256: Sha256 | None
-    signature: Signature | None = None
+    format_version: Literal[2] = Field(description="the record layout's version")
+    previous_record_sha256: Sha256 | None = Field(
+        description="`record_sha256` of the spec's run stored before this one, or null")
+    signature: Signature | None = Field(
+        default=None, description="Ed25519 signature of `record_sha256` (with a signing key)")
 
 
 class BaselineScore(Fixed):
@@ -355,17 +375,19 @@ class BaselineConsensus(Fixed):
 
 
 class _BaselineBody(Fixed):
-    run_id: str
-    spec_name: str
-    spec_sha256: Sha256
-    input_sha256: Sha256
-    code_version: str
-    graph_sha256: Sha256
-    score: BaselineScore
-    edges: list[Edge]
-    data: BaselineData
-    pinned_utc: str
-    consensus: BaselineConsensus | None = None
+    run_id: str = Field(description="the pinned run")
+    spec_name: str = Field(description="its spec's `name`")
+    spec_sha256: Sha256 = Field(description="the pinned run's spec hash")
+    input_sha256: Sha256 = Field(description="the pinned run's input hash")
+    code_version: str = Field(description="the pinned run's code version")
+    graph_sha256: Sha256 = Field(description="the pinned run's graph hash")
+    score: BaselineScore = Field(description="name, ess, value and value per row")
+    edges: list[Edge] = Field(description="the pinned run's edges")
+    data: BaselineData = Field(description="data sha256, rows, and each column's kind, "
+                                           "states and bins")
+    pinned_utc: str = Field(description="when it was pinned")
+    consensus: BaselineConsensus | None = Field(
+        default=None, description="the pinned run's bootstrap consensus network, if any")
 
 
 class BaselineV1(_BaselineBody):
@@ -386,10 +408,12 @@ class Baseline(_BaselineBody):
 
     model_config = ConfigDict(title="dagmill baseline")
 
-    format_version: Literal[2]
-    record_sha256: Sha256
-    baseline_sha256: Sha256
-    signature: Signature | None = None
+    format_version: Literal[2] = Field(description="the baseline layout's version")
+    record_sha256: Sha256 = Field(description="the pinned run's `record_sha256`")
+    baseline_sha256: Sha256 = Field(
+        description="sha256 of this baseline without this key and `signature`")
+    signature: Signature | None = Field(
+        default=None, description="Ed25519 signature of `baseline_sha256` (with a signing key)")
 
 
 class LegacyScore(Open):
@@ -499,6 +523,17 @@ def record_json_schema() -> dict[str, Any]:
     return _schema(RunRecord, "A dagmill run record (run.json), format version 2: the "
                    "inputs and their hashes, the score, the search, the learned edges and "
                    "their graph hash, timings and the environment.")
+
+
+def key_table(model: type[BaseModel]) -> str:
+    """A Markdown table of a document's top-level keys (in the model's order): key,
+    whether it is always present, and what it holds; the README's tables are this."""
+    rows = ["| key | always | holds |", "| --- | --- | --- |"]
+    for name, info in model.model_fields.items():
+        key = info.alias or name
+        rows.append(f"| `{key}` | {'yes' if info.is_required() else 'no'} | "
+                    f"{info.description or ''} |")
+    return "\n".join(rows) + "\n"
 
 
 def baseline_json_schema() -> dict[str, Any]:

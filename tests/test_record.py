@@ -21,6 +21,7 @@ from runner.record import (
     RunRecord,
     baseline_json_schema,
     dump,
+    key_table,
     record_json_schema,
 )
 from runner.store import (
@@ -251,3 +252,14 @@ def test_the_writers_refuse_a_record_that_does_not_fit(stored: dict[str, Any],
     assert not (tmp_path / "kiln-line" / "baseline.json").exists()
     _, folder = write_run(tmp_path, record, trace, model)
     assert (folder / "run.json").read_text() == dump_json(record)
+
+
+@pytest.mark.parametrize(("marker", "model"), [("record-keys", RunRecord),
+                                               ("baseline-keys", Baseline)])
+def test_the_readme_key_tables_are_the_models(marker: str, model: type) -> None:
+    """The README's tables of run.json's and baseline.json's top-level keys are rendered
+    from the record models (``record.key_table``): a field added, removed or described
+    differently in the model must be carried into the README."""
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    start, end = f"<!-- {marker}:start -->\n", f"<!-- {marker}:end -->"
+    assert text[text.index(start) + len(start):text.index(end)] == key_table(model)
