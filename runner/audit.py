@@ -5,7 +5,8 @@ For every stored run of a spec: the record fits its format and its own seal
 its folder is named by its run id. Across the runs: the chain of
 ``previous_record_sha256`` links is whole (no run missing before another, no two runs
 following the same one, a single first run), and no unsealed record follows sealed ones
-(a seal that was stripped). The baseline: its own seal, the pinned run present and
+(a seal that was stripped). A run learned by ``check``: its ``check.json`` (the verdict)
+sealed and tied to that run. The baseline: its own seal, the pinned run present and
 matching. With a public key: every sealed record and the baseline carry a valid
 signature by that key.
 
@@ -33,12 +34,15 @@ from runner.record import format_version
 from runner.signing import signature_problem
 from runner.store import (
     BASELINE_HASH_KEY,
+    CHECK_FILE,
+    CHECK_HASH_KEY,
     PREVIOUS_KEY,
     RECORD_HASH_KEY,
     RUN_ID,
     SIGNATURE_KEY,
     baseline_path,
     read_baseline,
+    read_check_outcome,
     read_run,
 )
 
@@ -65,6 +69,7 @@ class SpecAudit:
     runs: int = 0
     sealed: int = 0
     signed: int = 0
+    checks: int = 0
     baseline: str = "none pinned"
     problems: list[Finding] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
@@ -75,7 +80,8 @@ class SpecAudit:
 
     def as_dict(self) -> dict[str, Any]:
         return {"spec_name": self.spec_name, "ok": self.ok, "runs": self.runs,
-                "sealed": self.sealed, "signed": self.signed, "baseline": self.baseline,
+                "sealed": self.sealed, "signed": self.signed, "checks": self.checks,
+                "baseline": self.baseline,
                 "problems": [f.as_dict() for f in self.problems], "notes": self.notes}
 
 
@@ -141,8 +147,25 @@ def _check_runs(audit: SpecAudit, folders: list[Path],
             why = signature_problem(doc.get(SIGNATURE_KEY), str(doc.get(RECORD_HASH_KEY)), key)
             if why is not None:
                 audit.problems.append(Finding(str(path), f"signature: {why}"))
+        _check_outcome_file(audit, folder, key)
         readable.append((folder, doc))
     return readable
+
+
+def _check_outcome_file(audit: SpecAudit, folder: Path, key: Ed25519PublicKey | None) -> None:
+    """A run learned by ``check`` has a sealed ``check.json`` (and, with a key, signed)."""
+    try:
+        outcome = read_check_outcome(folder)
+    except InputError as exc:
+        audit.problems.extend(_finding(p) for p in exc.problems)
+        return
+    if outcome is None:
+        return
+    audit.checks += 1
+    if key is not None:
+        why = signature_problem(outcome.get(SIGNATURE_KEY), str(outcome[CHECK_HASH_KEY]), key)
+        if why is not None:
+            audit.problems.append(Finding(str(folder / CHECK_FILE), f"signature: {why}"))
 
 
 def _check_chain(audit: SpecAudit, records: list[tuple[Path, dict[str, Any]]]) -> None:

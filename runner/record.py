@@ -416,6 +416,26 @@ class Baseline(_BaselineBody):
         default=None, description="Ed25519 signature of `baseline_sha256` (with a signing key)")
 
 
+class CheckOutcome(Fixed):
+    """``check.json`` in the run folder of a run that ``dagmill check`` learned: the
+    baseline it was held against and the verdict, sealed like a record."""
+
+    model_config = ConfigDict(title="dagmill check outcome")
+
+    format_version: Literal[2]
+    run_id: str = Field(description="the run this check learned (its folder)")
+    run_record_sha256: Sha256 = Field(description="that run's `record_sha256`")
+    checked_utc: str = Field(description="when the check was made")
+    baseline_run_id: str | None = Field(description="the pinned run, or null when none was")
+    baseline_sha256: Sha256 | None = Field(description="the baseline's seal, or null")
+    ok: bool = Field(description="whether the gate passed")
+    verdict: str = Field(description="the gate's verdict")
+    failures: list[str] = Field(description="the rules that failed, one line each")
+    check_sha256: Sha256 = Field(
+        description="sha256 of this file without this key and `signature`")
+    signature: Signature | None = None
+
+
 class LegacyScore(Open):
     """A version-0 score block: only the value is checked."""
 
@@ -498,6 +518,18 @@ def check_record(doc: Any, file: str) -> AnyRunRecord:
     found = _check(doc, file, "run record", (LegacyRunRecord, RunRecordV1, RunRecord))
     assert isinstance(found, AnyRunRecord)
     return found
+
+
+def check_outcome(doc: Any, file: str) -> CheckOutcome:
+    """``doc`` (a parsed ``check.json``) as its model (see :func:`check_record`)."""
+    if not isinstance(doc, dict):
+        raise InputError(Problem(file, "not a dagmill check outcome: a JSON object was "
+                                 "expected"))
+    _version(doc, file, "check outcome")
+    try:
+        return CheckOutcome.model_validate(doc)
+    except ValidationError as exc:
+        raise InputError(_problems(exc, file)) from None
 
 
 def check_baseline(doc: Any, file: str) -> AnyBaseline:

@@ -43,7 +43,13 @@ from typing import Any
 
 from runner.errors import InputError, Problem
 from runner.graph import graph_sha256
-from runner.record import FORMAT_VERSION, check_baseline, check_record, format_version
+from runner.record import (
+    FORMAT_VERSION,
+    check_baseline,
+    check_outcome,
+    check_record,
+    format_version,
+)
 from runner.signing import Signer, signer_from_environment
 
 try:
@@ -513,3 +519,76 @@ def write_baseline(root: Path, record: dict[str, Any], pinned_utc: str,
     path = baseline_path(root, record["spec_name"])
     atomic_write_text(path, dump_json(new))
     return new, old, path
+
+
+# --------------------------------------------------------------------------- check outcomes
+
+CHECK_FILE = "check.json"
+CHECK_HASH_KEY = "check_sha256"
+
+
+def check_sha256(doc: dict[str, Any]) -> str:
+    """The sha256 of a check outcome without ``check_sha256`` and ``signature``."""
+    return sha256_text(dump_json({k: v for k, v in doc.items()
+                                  if k not in (CHECK_HASH_KEY, SIGNATURE_KEY)}))
+
+
+def write_check_outcome(folder: Path, record: dict[str, Any], baseline: dict[str, Any] | None,
+                        ok: bool, verdict: str, failures: Sequence[str], checked_utc: str,
+                        signer: Signer | None = None) -> Path:
+    """Write ``check.json`` (sealed, and signed with a signer: default the key
+    ``$DAGMILL_SIGNING_KEY`` names) into the run folder of a run that ``check`` learned:
+    which baseline it was held against and what the gate said. Returns its path."""
+    if signer is None:
+        signer = signer_from_environment()
+    stored = read_run(folder)
+    doc: dict[str, Any] = {
+        "format_version": FORMAT_VERSION,
+        "run_id": stored["run_id"],
+        "run_record_sha256": stored[RECORD_HASH_KEY],
+        "checked_utc": checked_utc,
+        "baseline_run_id": None if baseline is None else baseline["run_id"],
+        "baseline_sha256": None if baseline is None else baseline.get(BASELINE_HASH_KEY),
+        "ok": ok,
+        "verdict": verdict,
+        "failures": list(failures),
+    }
+    doc[CHECK_HASH_KEY] = check_sha256(doc)
+    if signer is not None:
+        doc[SIGNATURE_KEY] = signer.sign(doc[CHECK_HASH_KEY])
+    _valid(check_outcome, doc, "check outcome")
+    path = folder / CHECK_FILE
+    atomic_write_text(path, dump_json(doc))
+    return path
+
+
+def read_check_outcome(folder: Path) -> dict[str, Any] | None:
+    """The run's ``check.json``, or None when the run was not learned by ``check``;
+    refused (InputError naming the file) when it does not fit, was edited, or belongs to
+    another run."""
+    path = folder / CHECK_FILE
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        return None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(Problem(str(path), f"check outcome is unreadable: {exc}")) from None
+    check_outcome(doc, str(path))
+    if check_sha256(doc) != doc[CHECK_HASH_KEY]:
+        raise InputError(Problem(str(path), "check outcome does not match its check_sha256: "
+                                 "it was edited by hand; restore it from version control",
+                                 key=CHECK_HASH_KEY))
+    raw = _raw_record(folder)
+    if raw is None or doc["run_record_sha256"] != raw.get(RECORD_HASH_KEY):
+        raise InputError(Problem(str(path), "check outcome belongs to another run (its "
+                                 "run_record_sha256 differs from run.json's); restore it "
+                                 "from version control", key="run_record_sha256"))
+    return doc
+
+
+def _raw_record(folder: Path) -> dict[str, Any] | None:
+    try:
+        doc = json.loads((folder / "run.json").read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return None
+    return doc if isinstance(doc, dict) else None
