@@ -18,6 +18,7 @@ from runner.engines import Engine, InProcess
 from runner.errors import InputError, Problem
 from runner.pipeline import Prepared, RunResult, learn, prepare, store_learned
 from runner.progress import SILENT, Reporter
+from runner.store import ensure_writable
 
 
 @dataclass(frozen=True)
@@ -54,6 +55,8 @@ def run_specs(specs: Sequence[str | Path], results: Path, engine: Engine,
             problems.extend(exc.problems)
     if problems:
         raise InputError(problems)
+    for item in prepared:  # a results folder that cannot be written fails before learning
+        ensure_writable(results, item.spec.name)
     if len(prepared) == 1:
         record, trace = learn(prepared[0], seed, engine, reporter)
         learned = [_Learned(record, trace)]

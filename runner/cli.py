@@ -1,16 +1,20 @@
 """The ``dagmill`` command: parses arguments, calls the pipeline, formats the answer.
 
 Exit codes: 0 success; 1 a check failed (a rerun that does not reproduce its twin, a
-gate failure against the baseline, or no baseline to check against);
-2 bad input (spec, data, arguments, unknown run). Human output goes to stdout,
+gate failure against the baseline, no baseline to check against, or `verify` found a
+problem); 2 bad input (spec, data, arguments, unknown run); 3 an environment fault
+(permissions, a full disk, memory, a lost worker or scheduler): one line, no traceback
+unless --debug. Human output goes to stdout,
 warnings to stderr; ``--json`` prints one JSON document and nothing else on stdout.
 """
 
 from __future__ import annotations
 
 import argparse
+import errno
 import json
 import sys
+import traceback
 from collections.abc import Sequence
 from datetime import UTC, datetime
 from pathlib import Path
@@ -20,7 +24,7 @@ from runner import __version__, compare
 from runner.batch import run_specs
 from runner.engines import ENGINE_ENV, choose_engine, open_engine
 from runner.environment import environment_changes, environment_sentence
-from runner.errors import EngineFailure, InputError, Problem
+from runner.errors import EnvironmentFault, InputError, Problem
 from runner.export import FORMATS, export
 from runner.format import render_table, summary_lines
 from runner.pipeline import RunResult, run_spec, validate
@@ -38,12 +42,30 @@ from runner.store import (
     write_baseline,
 )
 
+EXIT_CODES = """exit codes:
+  0  success
+  1  a check failed: a gate, a rerun that differs from its twin, no baseline, verify
+  2  bad input: spec, data, arguments, an unknown run (one line per problem)
+  3  an environment fault: permissions, a full disk, memory, a lost worker or scheduler
+     (one line; --debug shows the traceback)"""
+
 
 class _Parser(argparse.ArgumentParser):
     """argparse that reports bad arguments as input errors (exit 2, no traceback)."""
 
     def error(self, message: str) -> None:  # type: ignore[override]
         raise InputError(Problem("command line", message))
+
+
+def _seed(text: str) -> int:
+    """``--seed``: an integer from 0 to 2**63 - 1 (what a seeded generator takes)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not an integer: {text!r}") from None
+    if not 0 <= value < 2**63:
+        raise argparse.ArgumentTypeError(f"must be from 0 to 2**63-1, got {value}")
+    return value
 
 
 def _engine_options(p: argparse.ArgumentParser) -> None:
@@ -55,8 +77,11 @@ def _engine_options(p: argparse.ArgumentParser) -> None:
 
 
 def _parser() -> argparse.ArgumentParser:
-    parser = _Parser(prog="dagmill", description=__doc__.splitlines()[0])
+    parser = _Parser(prog="dagmill", description=__doc__.splitlines()[0], epilog=EXIT_CODES,
+                     formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--version", action="version", version=f"dagmill {__version__}")
+    parser.add_argument("--debug", action="store_true",
+                        help="show the traceback of an environment fault (exit 3)")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
     p = sub.add_parser("validate", help="check specs and their data; report every problem")
@@ -66,7 +91,7 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("run", help="learn and store a run for each spec")
     p.add_argument("specs", nargs="+", metavar="SPEC")
     p.add_argument("--data", help="learn on this CSV instead of the spec's dataset")
-    p.add_argument("--seed", type=int, help="override search.seed")
+    p.add_argument("--seed", type=_seed, help="override search.seed (0 to 2**63-1)")
     p.add_argument("--results", help="results folder (default $DAGMILL_RESULTS or ./results)")
     p.add_argument("--json", action="store_true")
     _engine_options(p)
@@ -141,6 +166,9 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("demo", help="copy the kiln-line scenario into DIR and run it")
     p.add_argument("dir", nargs="?", default="dagmill-demo", metavar="DIR")
     p.add_argument("--json", action="store_true")
+    for command in sub.choices.values():
+        command.add_argument("--debug", action="store_true", dest="debug_here",
+                             help="show the traceback of an environment fault (exit 3)")
     return parser
 
 
@@ -174,6 +202,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
     rows, out, mismatch = [], [], []
     choice = choose_engine(args.engine, args.workers)
+    if choice.capped:
+        print(choice.capped, file=sys.stderr)
     with open_engine(choice) as engine:
         results = run_specs(args.specs, root, engine, data_path=args.data, seed=args.seed,
                             reporter=Reporter(args.quiet))
@@ -280,6 +310,8 @@ def _cmd_check(args: argparse.Namespace) -> int:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
     reports, seconds, texts = [], {}, []
     choice = choose_engine(args.engine, args.workers)
+    if choice.capped:
+        print(choice.capped, file=sys.stderr)
     with open_engine(choice) as engine:
         results = run_specs(args.specs, root, engine, data_path=args.data,
                             reuse_bins=True,
@@ -480,8 +512,37 @@ COMMANDS = {"export": _cmd_export, "validate": _cmd_validate, "run": _cmd_run, "
             "report": _cmd_report, "verify": _cmd_verify, "keygen": _cmd_keygen}
 
 
+#: errno values that are the machine's fault, not the input's: exit 3 with advice.
+_FAULT_ADVICE = {
+    errno.EACCES: "no permission: check the folder's owner and mode",
+    errno.EPERM: "not permitted: check the folder's owner and mode",
+    errno.EROFS: "the file system is read-only: choose another --results folder",
+    errno.ENOSPC: "the disk is full: free space or choose another --results folder",
+    errno.EDQUOT: "the disk quota is exhausted: free space or choose another folder",
+    errno.ENAMETOOLONG: "a name is longer than the file system allows: shorten it",
+    errno.EMFILE: "too many open files: raise the limit (ulimit -n) or use fewer --workers",
+    errno.ENFILE: "the system's open-file table is full: retry later",
+    errno.EIO: "an input/output error from the device: check the disk",
+}
+
+
+def _fault_line(exc: BaseException) -> str | None:
+    """The one line for an environment fault, or None when ``exc`` is not one."""
+    if isinstance(exc, EnvironmentFault):
+        return f"error: {exc}"
+    if isinstance(exc, MemoryError):
+        return ("error: out of memory: use a smaller parent_cap or budget, fewer --workers, "
+                "or a machine with more memory")
+    if isinstance(exc, OSError) and exc.errno in _FAULT_ADVICE:
+        where = exc.filename if exc.filename is not None else "the file system"
+        return f"error: {where}: {exc.strerror}: {_FAULT_ADVICE[exc.errno]}"
+    return None
+
+
 def main(argv: Sequence[str] | None = None) -> int:
-    """Entry point of the console script; returns the exit code."""
+    """Entry point of the console script; returns the exit code: 0 success, 1 a check
+    failed, 2 bad input, 3 an environment fault (see the module docstring)."""
+    debug = "--debug" in (sys.argv[1:] if argv is None else argv)
     try:
         args = _parser().parse_args(argv)
         if args.command in ("run", "check", "pin"):
@@ -491,9 +552,14 @@ def main(argv: Sequence[str] | None = None) -> int:
         for problem in exc.problems:
             print(f"error: {problem.format()}", file=sys.stderr)
         return 2
-    except EngineFailure as exc:
-        print(f"error: {exc}", file=sys.stderr)
-        return 2
+    except (EnvironmentFault, OSError, MemoryError) as exc:
+        line = _fault_line(exc)
+        if line is None:
+            raise
+        if debug:
+            traceback.print_exc(file=sys.stderr)
+        print(line, file=sys.stderr)
+        return 3
     except KeyboardInterrupt:
         print("interrupted; nothing half-written was kept", file=sys.stderr)
         return 130

@@ -34,7 +34,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, TypeVar
 
-from runner.errors import EngineFailure, InputError, Problem
+from runner.errors import EngineFailure, EnvironmentFault, InputError, Problem
 from runner.progress import Progress
 
 if TYPE_CHECKING:  # Dask is an optional extra, imported where it is used
@@ -67,6 +67,15 @@ class EngineChoice:
     kind: str
     workers: int
     address: str | None = None
+    asked: int | None = None  # the --workers asked for, when it was capped to the cores
+
+    @property
+    def capped(self) -> str | None:
+        """The warning when ``--workers`` asked for more processes than usable cores."""
+        if self.asked is None:
+            return None
+        return (f"warning: --workers {self.asked} is more than the {self.workers} usable "
+                f"core(s) of this machine; using {self.workers}")
 
     @property
     def label(self) -> str:
@@ -90,7 +99,9 @@ def choose_engine(engine: str | None, workers: int | None,
     count = workers if workers is not None and workers >= 1 else default_workers()
     choice: EngineChoice | None = None
     if text in ("local", "dask-local"):
-        choice = EngineChoice(text, count)
+        cores = default_workers()
+        choice = (EngineChoice(text, cores, asked=count) if count > cores
+                  else EngineChoice(text, count))
     else:
         match = _DASK_ADDRESS.match(text)
         if match and 0 < int(match["port"]) < 65536:
@@ -233,20 +244,20 @@ class DaskEngine(Engine):
         try:
             self.client = Client(choice.address, timeout=CONNECT_SECONDS)
         except (OSError, TimeoutError) as exc:
-            raise InputError(Problem(
-                "command line", f"no Dask scheduler answers at {choice.label} within "
+            raise EnvironmentFault(
+                f"no Dask scheduler answers at {choice.label} within "
                 f"{CONNECT_SECONDS:g} s ({type(exc).__name__}); start one with `dask scheduler` "
-                "and workers with `dask worker tcp://HOST:PORT`, or use --engine local",
-                key="--engine")) from None
+                "and workers with `dask worker tcp://HOST:PORT`, or use --engine local") \
+                from None
         self.label = choice.label
         try:
             self.client.wait_for_workers(1, timeout=WORKER_WAIT_SECONDS)
         except (OSError, TimeoutError):
             self.client.close()
-            raise InputError(Problem(
-                "command line", f"the Dask scheduler at {choice.label} has no workers (none "
+            raise EnvironmentFault(
+                f"the Dask scheduler at {choice.label} has no workers (none "
                 f"joined within {WORKER_WAIT_SECONDS:g} s); start some with `dask worker "
-                f"{choice.address}`", key="--engine")) from None
+                f"{choice.address}`") from None
 
     @classmethod
     def attach(cls, client: Any, label: str = "dask") -> DaskEngine:

@@ -50,9 +50,15 @@ class InputError(Exception):
         super().__init__("\n".join(p.format() for p in self.problems))
 
 
-class EngineFailure(Exception):
+class EnvironmentFault(Exception):
+    """A fault of the environment, not of the input: permissions, a full disk, memory, a
+    lost worker, a scheduler that does not answer. Reported in one line naming the path
+    or resource and what to do, exit 3 (a traceback only with ``--debug``)."""
+
+
+class EngineFailure(EnvironmentFault):
     """The execution engine lost work (a worker process died, the cluster went away):
-    reported in one line, exit 2, and nothing is stored, since runs are stored only
+    reported in one line, exit 3, and nothing is stored, since runs are stored only
     after every unit has come back."""
 
 

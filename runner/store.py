@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import contextlib
 import csv
+import errno
 import hashlib
 import io
 import json
@@ -74,6 +75,85 @@ def sha256_text(text: str) -> str:
 def results_root(option: str | None) -> Path:
     """The results folder: the option, else ``$DAGMILL_RESULTS``, else ``./results``."""
     return Path(option or os.environ.get(RESULTS_ENV) or "results")
+
+
+STALE_SECONDS = 3600  # staging folders and temporary files older than this are leftovers
+GITIGNORE = """# written by dagmill: staging folders and temporary files of interrupted writes
+.incoming-*
+.*.tmp
+"""
+
+
+def _folder_mode() -> int:
+    """The mode a new folder gets under the process umask (mkdtemp would give 0700)."""
+    umask = os.umask(0o022)
+    os.umask(umask)
+    return 0o777 & ~umask
+
+
+def _stale(path: Path, now: float) -> bool:
+    try:
+        return now - path.lstat().st_mtime > STALE_SECONDS
+    except OSError:
+        return False
+
+
+def clean_leftovers(root: Path, spec_name: str, now: float | None = None) -> list[Path]:
+    """Remove what interrupted writes left in a spec's folder more than an hour ago:
+    ``.incoming-*`` staging folders under ``runs/`` and ``.*.tmp`` files of atomic writes.
+    Recent ones are left alone (another command may be writing them). Returns what was
+    removed."""
+    import shutil
+    import time
+
+    now = time.time() if now is None else now
+    spec = root / spec_name
+    found = [*sorted((spec / "runs").glob(".incoming-*")), *sorted(spec.glob(".*.tmp")),
+             *sorted(root.glob(".*.tmp"))]
+    removed = []
+    for path in found:
+        if not _stale(path, now):
+            continue
+        if path.is_dir() and not path.is_symlink():
+            shutil.rmtree(path, ignore_errors=True)
+        else:
+            path.unlink(missing_ok=True)
+        removed.append(path)
+    return removed
+
+
+def _nearest_existing(path: Path) -> Path:
+    while not path.exists() and path.parent != path:
+        path = path.parent
+    return path
+
+
+def ensure_writable(root: Path, spec_name: str) -> None:
+    """Before any learning: the spec's ``runs/`` folder could be written, without creating
+    anything (a spec refused later leaves no trace). Where the folder exists, a probe file
+    is created and removed in it and stale leftovers are cleaned; where it does not yet,
+    the nearest existing folder must be a writable folder and every name to create within
+    the file system's length limit. Raises the OSError the write would have met (the
+    command reports it as an environment fault, exit 3), so no learn is wasted."""
+    runs = root / spec_name / "runs"
+    if runs.is_dir():
+        fd, probe = tempfile.mkstemp(prefix=".incoming-probe-", suffix=".tmp", dir=runs)
+        os.close(fd)
+        os.unlink(probe)
+        clean_leftovers(root, spec_name)
+        return
+    base = _nearest_existing(runs)
+    if not base.is_dir():
+        raise NotADirectoryError(errno.ENOTDIR, os.strerror(errno.ENOTDIR), str(base))
+    limit = os.pathconf(base, "PC_NAME_MAX") if hasattr(os, "pathconf") else 255
+    for part in runs.relative_to(base).parts:
+        if len(os.fsencode(part)) > limit:
+            raise OSError(errno.ENAMETOOLONG, os.strerror(errno.ENAMETOOLONG),
+                          str(base / part))
+    if not os.access(base, os.W_OK | os.X_OK):
+        raise PermissionError(errno.EACCES, os.strerror(errno.EACCES), str(base))
+    if hasattr(os, "statvfs") and os.statvfs(base).f_flag & os.ST_RDONLY:
+        raise OSError(errno.EROFS, os.strerror(errno.EROFS), str(base))
 
 
 def _file_mode() -> int:
@@ -218,8 +298,13 @@ def write_run(root: Path, record: dict[str, Any], trace: str,
     runs.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=".incoming-", dir=runs))
     try:
+        os.chmod(staging, _folder_mode())  # the run folder a colleague reads
         with _chain_lock(runs):
-            return _land(runs, staging, record, trace, model, signer)
+            landed = _land(runs, staging, record, trace, model, signer)
+        ignore = root / ".gitignore"
+        if not ignore.exists():  # keeps staging names of interrupted writes out of commits
+            atomic_write_text(ignore, GITIGNORE)
+        return landed
     finally:
         if staging.exists():
             for child in staging.iterdir():

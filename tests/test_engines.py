@@ -41,7 +41,11 @@ def free_port() -> int:
 def test_engine_choice_defaults_and_addresses() -> None:
     assert choose_engine(None, None, {}).kind == "local"
     assert choose_engine(None, None, {}).workers == default_workers()
-    assert choose_engine("local", 3, {}).workers == 3
+    one = choose_engine("local", 1, {})
+    assert (one.workers, one.capped) == (1, None)
+    many = choose_engine("local", default_workers() + 1, {})  # capped, with a warning
+    assert many.workers == default_workers() and many.asked == default_workers() + 1
+    assert many.capped is not None and "usable core" in many.capped
     dask = choose_engine(None, 2, {"DAGMILL_ENGINE": "dask://10.0.0.5:8786"})
     assert (dask.kind, dask.address) == ("dask", "tcp://10.0.0.5:8786")
     assert choose_engine("local", None, {"DAGMILL_ENGINE": "dask://x:1"}).kind == "local"
@@ -126,7 +130,7 @@ def test_dask_address_that_does_not_answer(tmp_path: Path, cli_process: ProcessC
     spec.write_text(spec.read_text() + BOOT)
     done = cli_process("run", str(spec), "--engine", f"dask://127.0.0.1:{free_port()}",
                        "--results", "results", cwd=tmp_path)
-    assert done.returncode == 2
+    assert done.returncode == 3
     assert "no Dask scheduler answers at dask://127.0.0.1:" in done.stderr
     assert "Traceback" not in done.stderr
     assert _no_runs(tmp_path)
@@ -204,7 +208,7 @@ def test_dask_scheduler_without_workers(tmp_path: Path, cli_process: ProcessCall
         address = cluster.scheduler_address.removeprefix("tcp://")
         done = cli_process("run", str(spec), "--engine", f"dask://{address}", "--results",
                            "results", cwd=tmp_path)
-    assert done.returncode == 2
+    assert done.returncode == 3
     assert "has no workers" in done.stderr and "Traceback" not in done.stderr
     assert _no_runs(tmp_path)
 
