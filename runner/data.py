@@ -35,7 +35,7 @@ import hashlib
 import io
 import math
 from collections.abc import Callable, Iterator, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -489,6 +489,41 @@ def _factorise(values: np.ndarray, declared: tuple[str, ...] | None) -> _Column:
     return _Column(raw_codes, labels, declared)
 
 
+@dataclass
+class _Report:
+    """Where the messages of one table point (file, row locator and unit, spec key
+    prefix) and the problems and warnings found so far, in the order found."""
+
+    file: str
+    locate: Callable[[np.ndarray], np.ndarray]
+    unit: str
+    key_prefix: str
+    problems: list[Problem] = field(default_factory=list)
+    warnings: list[Problem] = field(default_factory=list)
+
+    def line(self, where: np.ndarray) -> int | None:
+        """The first location as a file line (None when locations are frame rows)."""
+        return int(where[0]) if self.unit == "line" else None
+
+    def failed(self) -> bool:
+        return any(p.severity == "error" for p in self.problems)
+
+
+@dataclass
+class _EncodedColumn:
+    """One column ready for the data set: kind, why, states and codes (and numbers)."""
+
+    kind: str
+    reason: str
+    states: tuple[str, ...]
+    codes: np.ndarray
+    numbers: np.ndarray | None = None
+
+
+# A label's code before it is checked: missing, or not among the declared states.
+_MISSING_CODE, _UNDECLARED_CODE = -1, -2
+
+
 def _encode_columns(
     names: Sequence[str],
     columns: Sequence[np.ndarray],
@@ -502,148 +537,219 @@ def _encode_columns(
     key_prefix: str,
     kinds: Mapping[str, str] | None = None,
 ) -> _Encoded:
-    problems: list[Problem] = []
-    warnings: list[Problem] = []
-    declared = declared or {}
-    kinds = kinds or {}
-    parsed: list[_Column] = []
+    """Check and encode the columns: missing values, then each column's kind, states and
+    codes; every problem is collected in ``_Encoded.problems``."""
+    report = _Report(file, locate, unit, key_prefix)
+    parsed = _parse_columns(names, columns, declared or {}, report)
+    n_rows = len(columns[0]) if columns else 0
+    keep = _rows_to_keep(names, parsed, n_rows, missing, report)
+    dropped = int(n_rows - keep.sum())
+    if dropped and not _report_dropped(n_rows, dropped, report):
+        return _Encoded((), np.zeros((len(names), 0), np.uint8), dropped, (), report.problems)
+    kept_rows = np.flatnonzero(keep) if dropped else None
+    encoded = []
+    for name, col in zip(names, parsed, strict=True):
+        column = _encode_column(name, col, (kinds or {}).get(name), max_states, kept_rows,
+                                report)
+        if column is not None:
+            encoded.append(column)
+    if report.failed():
+        return _Encoded((), np.zeros((len(names), 0), np.uint8), dropped,
+                        tuple(report.warnings), report.problems)
+    return _assemble(encoded, dropped, report)
+
+
+def _parse_columns(names: Sequence[str], columns: Sequence[np.ndarray],
+                   declared: Mapping[str, Sequence[str]], report: _Report) -> list[_Column]:
+    """Each column factorised, its declared states (if any) checked."""
+    parsed = []
     for name, values in zip(names, columns, strict=True):
         states = declared.get(name)
         if states is not None:
             states = tuple(states)
-            problems.extend(_declared_problems(name, states, file, key_prefix))
+            report.problems.extend(_declared_problems(name, states, report.file,
+                                                      report.key_prefix))
         parsed.append(_factorise(values, states))
+    return parsed
 
-    n_rows = len(columns[0]) if columns else 0
-    missing_masks = [
-        np.array([label is None for label in col.labels], dtype=bool)[col.raw_codes]
-        for col in parsed
-    ]
+
+def _rows_to_keep(names: Sequence[str], parsed: Sequence[_Column], n_rows: int,
+                  missing: str, report: _Report) -> np.ndarray:
+    """The rows to encode (a mask): under ``missing: error`` all of them, with a problem
+    per column that has missing values; under ``drop-rows`` the rows without any."""
     keep = np.ones(n_rows, dtype=bool)
-    if missing == "error":
-        for name, mask in zip(names, missing_masks, strict=True):
-            if mask.any():
-                rows = np.flatnonzero(mask)
-                where = locate(rows[:_SHOWN_LINES])
-                first = "at" if rows.size <= _SHOWN_LINES else "first at"
-                problems.append(Problem(
-                    file, f"column {name!r} has {_plural(rows.size, 'missing value')} (empty or "
-                    f"an NA spelling), {first} {_locations(unit, where)}; fill "
-                    f"{'it' if rows.size == 1 else 'them'} in, or set {key_prefix}.missing: "
-                    "drop-rows to drop such rows",
-                    line=int(where[0]) if unit == "line" else None, key=name))
-    else:
-        for mask in missing_masks:
-            keep &= ~mask
-    dropped = int(n_rows - keep.sum())
-    if dropped:
-        if dropped == n_rows:
-            problems.append(Problem(
-                file, f"every one of the {n_rows:,} data rows has a missing value; nothing is "
-                f"left after {key_prefix}.missing: drop-rows", key=f"{key_prefix}.missing"))
-            return _Encoded((), np.zeros((len(names), 0), np.uint8), dropped, (), problems)
-        warnings.append(Problem(
-            file, f"dropped {dropped:,} of {n_rows:,} data rows with a missing value "
-            f"({key_prefix}.missing: drop-rows)", key=f"{key_prefix}.missing",
-            severity="warning"))
-    kept_rows = np.flatnonzero(keep) if dropped else None
-
-    all_states: list[tuple[str, ...]] = []
-    all_codes: list[np.ndarray] = []
-    column_kinds: list[str] = []
-    reasons: list[str] = []
-    numbers: dict[int, np.ndarray] = {}
     for name, col in zip(names, parsed, strict=True):
-        raw = col.raw_codes if kept_rows is None else col.raw_codes[kept_rows]
-        present = np.bincount(raw, minlength=len(col.labels)) > 0
-        seen = sorted({label for label, p in zip(col.labels, present, strict=True)
-                       if p and label is not None})
-        declared_kind = kinds.get(name)
-        many = col.declared is None and len(seen) > max_states
-        if declared_kind == "continuous" or (declared_kind is None and many):
-            parsed_numbers = _numbers(col.labels)
-            if declared_kind == "continuous" or not np.isnan(parsed_numbers[~_missing(col)]).any():
-                bad_problem = _not_numbers(name, col, raw, parsed_numbers, file, locate,
-                                           kept_rows, unit)
-                if bad_problem is not None:
-                    problems.append(bad_problem)
-                    continue
-                numbers[len(all_codes)] = parsed_numbers[raw]
-                column_kinds.append("continuous")
-                reasons.append("declared" if declared_kind else "inferred-numeric-many-values")
-                if len(seen) == 1:
-                    warnings.append(Problem(
-                        file, f"column {name!r} has the same value {seen[0]!r} in every row; "
-                        "it is kept, but it can neither depend on nor explain another column",
-                        key=name, severity="warning"))
-                all_states.append(())
-                all_codes.append(np.zeros(len(raw), dtype=np.uint8))
-                continue
-        column_kinds.append("discrete")
-        if col.declared is not None or declared_kind is not None:
-            reasons.append("declared")
-        elif seen and not np.isnan(_numbers(seen)).any():
-            reasons.append("inferred-numeric-few-values")
+        mask = _missing(col)[col.raw_codes]
+        if missing == "error":
+            _report_missing(name, mask, report)
         else:
-            reasons.append("inferred-text")
-        if col.declared is None:
-            if len(seen) > max_states:
-                problems.append(Problem(
-                    file, f"column {name!r} has {len(seen):,} distinct values, more than the "
-                    f"limit of {max_states:,} ({key_prefix}.max_states); it looks like an "
-                    "identifier or a continuous measurement", key=name))
-                continue
-            states = tuple(seen)
-        else:
-            states = col.declared
-            unseen = [s for s in states if s not in set(seen)]
-            if unseen:
-                warnings.append(Problem(
-                    file, f"declared {_plural(len(unseen), 'state', bare=True)} "
-                    f"{_and_list([repr(s) for s in unseen])} never "
-                    f"{'occurs' if len(unseen) == 1 else 'occur'} in the data; kept, with zero "
-                    "counts", key=name, severity="warning"))
-        if len(states) > MAX_ENCODABLE_STATES:
-            problems.append(Problem(
-                file, f"column {name!r} has {len(states):,} states, more than the "
-                f"{MAX_ENCODABLE_STATES:,} that can be encoded", key=name))
-            continue
-        if len(seen) == 1:
-            warnings.append(Problem(
-                file, f"column {name!r} has the same value {seen[0]!r} in every row; it is kept, "
-                "but it can neither depend on nor explain another column", key=name,
-                severity="warning"))
-        index = {s: i for i, s in enumerate(states)}
-        undeclared, missing_code = -2, -1
-        lut = np.array([missing_code if label is None else index.get(label, undeclared)
-                        for label in col.labels], dtype=np.int64)
-        codes = lut[raw]
-        bad = codes == undeclared
-        if bad.any():
-            problems.append(_undeclared_problem(
-                name, states, col, raw, bad, file, locate, kept_rows, unit, key_prefix))
-            continue
-        all_states.append(states)
-        all_codes.append(codes)
+            keep &= ~mask
+    return keep
 
-    if problems and any(p.severity == "error" for p in problems):
-        return _Encoded((), np.zeros((len(names), 0), np.uint8), dropped, tuple(warnings),
-                        problems)
-    widest = max(len(s) for s in all_states)
+
+def _report_missing(name: str, mask: np.ndarray, report: _Report) -> None:
+    """The problem of a column with missing values under ``missing: error``."""
+    if not mask.any():
+        return
+    rows = np.flatnonzero(mask)
+    where = report.locate(rows[:_SHOWN_LINES])
+    first = "at" if rows.size <= _SHOWN_LINES else "first at"
+    report.problems.append(Problem(
+        report.file, f"column {name!r} has {_plural(rows.size, 'missing value')} (empty or "
+        f"an NA spelling), {first} {_locations(report.unit, where)}; fill "
+        f"{'it' if rows.size == 1 else 'them'} in, or set {report.key_prefix}.missing: "
+        "drop-rows to drop such rows",
+        line=report.line(where), key=name))
+
+
+def _report_dropped(n_rows: int, dropped: int, report: _Report) -> bool:
+    """Say how many rows ``drop-rows`` dropped; False (with a problem) when none is left."""
+    key = f"{report.key_prefix}.missing"
+    if dropped == n_rows:
+        report.problems.append(Problem(
+            report.file, f"every one of the {n_rows:,} data rows has a missing value; "
+            f"nothing is left after {key}: drop-rows", key=key))
+        return False
+    report.warnings.append(Problem(
+        report.file, f"dropped {dropped:,} of {n_rows:,} data rows with a missing value "
+        f"({key}: drop-rows)", key=key, severity="warning"))
+    return True
+
+
+def _encode_column(name: str, col: _Column, declared_kind: str | None, max_states: int,
+                   kept_rows: np.ndarray | None, report: _Report) -> _EncodedColumn | None:
+    """One column on the kept rows, continuous or discrete (None: it has a problem).
+
+    Continuous when declared so, or when undeclared with more than ``max_states``
+    distinct values that are all numbers; discrete otherwise."""
+    raw = col.raw_codes if kept_rows is None else col.raw_codes[kept_rows]
+    seen = _seen_labels(col, raw)
+    many = col.declared is None and len(seen) > max_states
+    if declared_kind == "continuous" or (declared_kind is None and many):
+        numbers = _numbers(col.labels)
+        if declared_kind == "continuous" or not np.isnan(numbers[~_missing(col)]).any():
+            return _continuous_column(name, col, raw, numbers, declared_kind, seen, kept_rows,
+                                      report)
+    return _discrete_column(name, col, raw, declared_kind, seen, max_states, kept_rows, report)
+
+
+def _seen_labels(col: _Column, raw: np.ndarray) -> list[str]:
+    """The distinct labels present in the rows ``raw`` (missing ones aside), sorted."""
+    present = np.bincount(raw, minlength=len(col.labels)) > 0
+    return sorted({label for label, p in zip(col.labels, present, strict=True)
+                   if p and label is not None})
+
+
+def _continuous_column(name: str, col: _Column, raw: np.ndarray, numbers: np.ndarray,
+                       declared_kind: str | None, seen: list[str],
+                       kept_rows: np.ndarray | None, report: _Report) -> _EncodedColumn | None:
+    """A continuous column: its numbers per row, zero codes and no states (None, with a
+    problem, when a value is not a number)."""
+    bad_problem = _not_numbers(name, col, raw, numbers, report.file, report.locate,
+                               kept_rows, report.unit)
+    if bad_problem is not None:
+        report.problems.append(bad_problem)
+        return None
+    reason = "declared" if declared_kind else "inferred-numeric-many-values"
+    _warn_if_constant(name, seen, report)
+    return _EncodedColumn("continuous", reason, (), np.zeros(len(raw), dtype=np.uint8),
+                          numbers[raw])
+
+
+def _discrete_column(name: str, col: _Column, raw: np.ndarray, declared_kind: str | None,
+                     seen: list[str], max_states: int, kept_rows: np.ndarray | None,
+                     report: _Report) -> _EncodedColumn | None:
+    """A discrete column: its states in order and each row's code (None: a problem)."""
+    reason = _discrete_reason(col, declared_kind, seen)
+    states = _state_order(name, col, seen, max_states, report)
+    if states is None:
+        return None
+    if len(states) > MAX_ENCODABLE_STATES:
+        report.problems.append(Problem(
+            report.file, f"column {name!r} has {len(states):,} states, more than the "
+            f"{MAX_ENCODABLE_STATES:,} that can be encoded", key=name))
+        return None
+    _warn_if_constant(name, seen, report)
+    codes = _state_codes(col, raw, states)
+    bad = codes == _UNDECLARED_CODE
+    if bad.any():
+        report.problems.append(_undeclared_problem(
+            name, states, col, raw, bad, report.file, report.locate, kept_rows, report.unit,
+            report.key_prefix))
+        return None
+    return _EncodedColumn("discrete", reason, states, codes)
+
+
+def _discrete_reason(col: _Column, declared_kind: str | None, seen: list[str]) -> str:
+    """Why a column is discrete: declared, numbers with few values, or text."""
+    if col.declared is not None or declared_kind is not None:
+        return "declared"
+    if seen and not np.isnan(_numbers(seen)).any():
+        return "inferred-numeric-few-values"
+    return "inferred-text"
+
+
+def _state_order(name: str, col: _Column, seen: list[str], max_states: int,
+                 report: _Report) -> tuple[str, ...] | None:
+    """The column's states: the declared ones in their order (a warning names those the
+    data lacks), else the seen ones sorted (None, with a problem, above ``max_states``)."""
+    if col.declared is None:
+        if len(seen) > max_states:
+            report.problems.append(Problem(
+                report.file, f"column {name!r} has {len(seen):,} distinct values, more than "
+                f"the limit of {max_states:,} ({report.key_prefix}.max_states); it looks like "
+                "an identifier or a continuous measurement", key=name))
+            return None
+        return tuple(seen)
+    states = col.declared
+    unseen = [s for s in states if s not in set(seen)]
+    if unseen:
+        report.warnings.append(Problem(
+            report.file, f"declared {_plural(len(unseen), 'state', bare=True)} "
+            f"{_and_list([repr(s) for s in unseen])} never "
+            f"{'occurs' if len(unseen) == 1 else 'occur'} in the data; kept, with zero "
+            "counts", key=name, severity="warning"))
+    return states
+
+
+def _warn_if_constant(name: str, seen: list[str], report: _Report) -> None:
+    if len(seen) == 1:
+        report.warnings.append(Problem(
+            report.file, f"column {name!r} has the same value {seen[0]!r} in every row; it "
+            "is kept, but it can neither depend on nor explain another column", key=name,
+            severity="warning"))
+
+
+def _state_codes(col: _Column, raw: np.ndarray, states: tuple[str, ...]) -> np.ndarray:
+    """Each row's index into ``states`` (int64); :data:`_MISSING_CODE` for a missing value,
+    :data:`_UNDECLARED_CODE` for a label that is not a state."""
+    index = {s: i for i, s in enumerate(states)}
+    lut = np.array([_MISSING_CODE if label is None else index.get(label, _UNDECLARED_CODE)
+                    for label in col.labels], dtype=np.int64)
+    return lut[raw]
+
+
+def _assemble(encoded: Sequence[_EncodedColumn], dropped: int, report: _Report) -> _Encoded:
+    """The code matrix (``uint8``, or ``uint16`` above 256 states; read-only) and, when a
+    column is continuous, the values matrix (NaN rows for discrete columns)."""
+    widest = max(len(c.states) for c in encoded)
     dtype = np.uint8 if widest <= 256 else np.uint16
-    matrix = np.empty((len(names), len(all_codes[0])), dtype=dtype)
-    for i, codes in enumerate(all_codes):
-        matrix[i] = codes
+    matrix = np.empty((len(encoded), len(encoded[0].codes)), dtype=dtype)
+    for i, column in enumerate(encoded):
+        matrix[i] = column.codes
     matrix.flags.writeable = False
-    if not numbers:
-        return _Encoded(tuple(all_states), matrix, dropped, tuple(warnings), problems,
-                        tuple(column_kinds), tuple(reasons))
+    kinds = tuple(c.kind for c in encoded)
+    reasons = tuple(c.reason for c in encoded)
+    if all(c.numbers is None for c in encoded):
+        return _Encoded(tuple(c.states for c in encoded), matrix, dropped,
+                        tuple(report.warnings), report.problems, kinds, reasons)
     values = np.full(matrix.shape, np.nan, dtype=np.float64)
-    for i, column in numbers.items():
-        values[i] = column
+    for i, column in enumerate(encoded):
+        if column.numbers is not None:
+            values[i] = column.numbers
     values.flags.writeable = False
-    return _Encoded(tuple(all_states), matrix, dropped, tuple(warnings), problems,
-                    tuple(column_kinds), tuple(reasons), values)
+    return _Encoded(tuple(c.states for c in encoded), matrix, dropped, tuple(report.warnings),
+                    report.problems, kinds, reasons, values)
 
 
 def _number(label: str) -> float:

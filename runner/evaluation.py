@@ -39,7 +39,7 @@ from runner.fit import (
 )
 from runner.scores.elementary import ln_scalar
 from runner.scores.fixed_order import sum_floats
-from runner.scores.gaussian import LinearGaussianFamily
+from runner.scores.gaussian import GaussianStatistics, LinearGaussianFamily
 
 SPLIT_RULE = ("seeded permutation (numpy SeedSequence(seed)); the first round(holdout * rows) "
               "rows of it are held out")
@@ -102,10 +102,12 @@ def gaussian_log_density_rows(families: Sequence[LinearGaussianFamily],
     return total
 
 
-def gaussian_held_out_fit(learn_values: np.ndarray, held_values: np.ndarray,
-                          families: Sequence[LinearGaussianFamily],
+def gaussian_held_out_fit(learn_values: np.ndarray | GaussianStatistics,
+                          held_values: np.ndarray, families: Sequence[LinearGaussianFamily],
                           parent_sets: Sequence[Sequence[int]]) -> dict[str, Any]:
-    """The record's ``evaluation`` blocks for a linear-Gaussian network."""
+    """The record's ``evaluation`` blocks for a linear-Gaussian network; the empty graph
+    is fitted on the learning rows (``learn_values``, or their statistics, the scorer's,
+    when already computed)."""
     rows = held_values.shape[1]
     empty_sets: list[tuple[int, ...]] = [() for _ in range(held_values.shape[0])]
     learned = sum_floats(gaussian_log_density_rows(families, parent_sets, held_values))

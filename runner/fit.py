@@ -44,9 +44,10 @@ from runner.scores.counts import COMPACT_ABOVE, configuration_codes
 from runner.scores.elementary import ln, ln_scalar
 from runner.scores.fixed_order import sum_floats
 from runner.scores.gaussian import (
+    GaussianStatistics,
     LinearGaussianFamily,
     linear_gaussian_parameters,
-    sufficient_statistics,
+    statistics_of,
 )
 
 MODEL_FORMAT = "dagmill-model"
@@ -130,10 +131,12 @@ def fit_discrete(codes: np.ndarray, arities: np.ndarray,
     return [discrete_family(codes, arities, c, tuple(ps)) for c, ps in enumerate(parent_sets)]
 
 
-def fit_gaussian(values: np.ndarray,
+def fit_gaussian(values: np.ndarray | GaussianStatistics,
                  parent_sets: Sequence[Sequence[int]]) -> list[LinearGaussianFamily]:
-    """Linear-Gaussian parameters of every family on ``values`` (variables x rows)."""
-    stats = sufficient_statistics(values)
+    """Linear-Gaussian parameters of every family on ``values`` (variables x rows), or on
+    their statistics (:func:`runner.scores.gaussian.sufficient_statistics`) when already
+    computed (the scorer's)."""
+    stats = statistics_of(values)
     return [linear_gaussian_parameters(stats, c, tuple(ps)) for c, ps in enumerate(parent_sets)]
 
 
@@ -155,14 +158,19 @@ def gaussian_model_document(families: Sequence[LinearGaussianFamily],
 
 
 def fit_model(dataset: Dataset, gaussian: bool, parent_sets: Sequence[Sequence[int]],
-              pseudo_count: float, graph_hash: str
+              pseudo_count: float, graph_hash: str,
+              statistics: GaussianStatistics | None = None,
               ) -> tuple[dict[str, Any], list[DiscreteFamily] | list[LinearGaussianFamily]]:
     """The ``model.json`` document of a learned graph on ``dataset`` (the learning rows)
-    and the fitted families: linear-Gaussian under a Gaussian score, else tables."""
+    and the fitted families: linear-Gaussian under a Gaussian score, else tables.
+
+    ``statistics`` are the learning rows' (the scorer's), computed from
+    ``dataset.values`` when not given."""
     if gaussian:
-        if dataset.values is None:
+        source = dataset.values if statistics is None else statistics
+        if source is None:
             raise ValueError("a Gaussian model needs continuous columns")
-        gauss = fit_gaussian(dataset.values, parent_sets)
+        gauss = fit_gaussian(source, parent_sets)
         return gaussian_model_document(gauss, parent_sets, dataset.names, dataset.rows,
                                        dataset.sha256, graph_hash), gauss
     tables = fit_discrete(dataset.codes, dataset.arities, parent_sets)

@@ -27,6 +27,7 @@ from runner.graph import edges_from_parents, graph_sha256
 from runner.kinds import is_gaussian, make_scorer, resolve_columns, score_record
 from runner.progress import SILENT, Progress, Reporter
 from runner.scores import SCORE_EQUIVALENT, FamilyScorer
+from runner.scores.gaussian import GaussianScorer, GaussianStatistics
 from runner.search import (
     DEFAULT_KICK,
     DEFAULT_PATIENCE,
@@ -344,7 +345,8 @@ def learning_part(prepared: Prepared) -> Prepared:
 
 
 def evaluation_block(prepared: Prepared, part: Prepared, held: Dataset, parent_sets: Any,
-                     fitted: Any, gaussian: bool, pseudo_count: float) -> dict[str, Any]:
+                     fitted: Any, gaussian: bool, pseudo_count: float,
+                     statistics: GaussianStatistics | None = None) -> dict[str, Any]:
     """The record's ``evaluation``: the split and the held-out fit of the learned graph
     and of the empty graph, both fitted on the learning rows ``part``."""
     ev, dataset = prepared.spec.evaluation, prepared.dataset
@@ -353,8 +355,8 @@ def evaluation_block(prepared: Prepared, part: Prepared, held: Dataset, parent_s
              "rows_held_out": held.rows, "rule": SPLIT_RULE}
     if gaussian:
         assert part.dataset.values is not None and held.values is not None
-        return {**split, **gaussian_held_out_fit(part.dataset.values, held.values, fitted,
-                                                 parent_sets)}
+        learned_on = part.dataset.values if statistics is None else statistics
+        return {**split, **gaussian_held_out_fit(learned_on, held.values, fitted, parent_sets)}
     return {**split, **held_out_fit(part.dataset.codes, held.codes, dataset.arities, fitted,
                                     pseudo_count, dataset.names)}
 
@@ -380,6 +382,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     score_spec = normalised_spec(spec)["score"]
     part, held = split_learning_rows(prepared)
     scorer = make_scorer(score_spec, part.dataset)
+    statistics = scorer.statistics if isinstance(scorer, GaussianScorer) else None
     b = spec.search.budget
     budget = spec_budget(spec)
     rng = np.random.default_rng(np.random.SeedSequence(effective_seed))
@@ -414,7 +417,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     pseudo_count = spec.fit.pseudo_count if spec.fit is not None else DEFAULT_PSEUDO_COUNT
     gaussian = is_gaussian(score_spec["name"])
     model, fitted = fit_model(part.dataset, gaussian, outcome.parent_sets, pseudo_count,
-                              graph_sha256(edges))
+                              graph_sha256(edges), statistics)
     record: dict[str, Any] = {
         "format_version": 2,  # runner.record.FORMAT_VERSION
         "run_id": None,
@@ -470,7 +473,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     if held is not None:
         record["data"].update(rows_learned=part.dataset.rows, rows_held_out=held.rows)
         record["evaluation"] = evaluation_block(prepared, part, held, outcome.parent_sets,
-                                                fitted, gaussian, pseudo_count)
+                                                fitted, gaussian, pseudo_count, statistics)
     if bootstrap is not None:
         record["bootstrap"] = bootstrap
         record["seconds"]["bootstrap"] = round(boot_seconds, 6)

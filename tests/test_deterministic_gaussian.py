@@ -145,19 +145,6 @@ def test_statistics_are_the_correctly_rounded_exact_values(
     assert stats.scatter.tolist() == scatter
 
 
-def test_statistics_of_a_read_only_array_are_computed_once() -> None:
-    """The scorer, the fitted model and the held-out fit of one learn pass the same
-    read-only learning rows: the statistics are reused, not recomputed; a writeable array
-    (which may change) is always read again."""
-    values = network_data(3, 3, 50)
-    assert sufficient_statistics(values) is not sufficient_statistics(values)
-    frozen = values.copy()
-    frozen.flags.writeable = False
-    first = sufficient_statistics(frozen)
-    assert sufficient_statistics(frozen) is first
-    assert sufficient_statistics(frozen.copy()) is not first
-
-
 def test_exact_moments_refuse_what_they_cannot_sum_exactly() -> None:
     with pytest.raises(ValueError, match="finite"):
         exact_moments(np.array([[1.0, math.nan]]))

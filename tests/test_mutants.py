@@ -28,25 +28,25 @@ from scipy import stats
 
 from runner.constraints import build_constraints
 from runner.scores import build_scorer
-from runner.scores.cache import FamilyScorer, mask_members
+from runner.scores.cache import CachedScorer, mask_members
+from runner.scores.protocol import Scorer
 from runner.search import Budget, Move, MoveEngine, local_search
 from runner.search.tabu import tabu_search
 
 # --------------------------------------------------------------------------- a table score
 
 
-class TableScorer(FamilyScorer):
+class TableScorer(CachedScorer):
     """A decomposable score given family by family: ``table[(child, parents)]`` is the
     score of ``child`` with exactly the (sorted) ``parents``; a family not in the table
     scores ``default`` (0 for the empty parent set). The same cache and counters as the
-    data scorers (like ``GaussianScorer``, it overrides only ``_compute``)."""
+    data scorers (like them, it implements only ``_compute``)."""
 
     def __init__(self, n_vars: int, table: Mapping[tuple[int, tuple[int, ...]], float],
                  default: float) -> None:
+        super().__init__(n_vars, 1)
         self.table = dict(table)
         self.default = default
-        self.n_vars, self.n_rows = n_vars, 1
-        self._start_cache(None)
 
     def _compute(self, child: int, mask: int) -> float:
         parents = mask_members(mask)
@@ -71,7 +71,7 @@ def gains_scorer() -> TableScorer:
     return TableScorer(4, table, default=-10.0)
 
 
-def first_moves(method: str, seeds: range, scorer: FamilyScorer) -> list[Move]:
+def first_moves(method: str, seeds: range, scorer: Scorer) -> list[Move]:
     """The first move ``method`` applies from the empty graph, one run per seed."""
     constraints = build_constraints([f"v{i}" for i in range(scorer.n_vars)])
     out = []

@@ -23,7 +23,10 @@ from scipy.special import gammaln
 from runner.graph import topological_order
 from runner.scores import DISCRETE_SCORES, SCORE_EQUIVALENT, build_scorer
 from runner.scores import counts as counts_module
-from runner.scores.counts import family_counts
+from runner.scores.counts import CountScorer, family_counts
+from runner.scores.gaussian import GaussianScorer, gaussian_bic_family, sufficient_statistics
+from runner.scores.likelihood import bic_family
+from runner.scores.protocol import Scorer
 
 # (our name, our ess, pgmpy estimator class name, its keyword arguments)
 PGMPY_SCORES = [
@@ -356,3 +359,64 @@ def test_unknown_score_name_is_refused() -> None:
     codes = np.zeros((1, 3), dtype=np.uint8)
     with pytest.raises(ValueError, match="unknown score"):
         build_scorer("mdl", codes, [1])
+
+
+# --------------------------------------------------------------------------- the protocol
+
+
+def family_through(scorer: Scorer, child: int, parents: tuple[int, ...]) -> float:
+    """A family score asked the way the engines ask: only through the protocol."""
+    by_mask = scorer.family_by_mask(child, sum(1 << p for p in parents))
+    assert scorer.family(child, reversed(parents)) == by_mask
+    return by_mask
+
+
+@settings(max_examples=30, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1), n_vars=st.integers(2, 5))
+def test_both_scorers_implement_the_protocol_with_the_direct_family_values(
+        seed: int, n_vars: int) -> None:
+    """Property: the count-based and the Gaussian scorer are instances of the runtime
+    ``Scorer`` protocol, and a family asked through it (by mask, by parents in any order)
+    is bit for bit the family function applied directly to the count table or to the
+    sufficient statistics; a repeated question is a cache hit, not a new evaluation."""
+    rng = np.random.default_rng(seed)
+    arities = [int(a) for a in rng.integers(2, 5, size=n_vars)]
+    codes = dependent_codes(arities, 150, rng)
+    values = rng.normal(size=(n_vars, 150)) + codes
+    statistics = sufficient_statistics(values)
+    count_scorer = build_scorer("bic", codes, arities)
+    gaussian_scorer = GaussianScorer(gaussian_bic_family, statistics)
+    assert isinstance(count_scorer, CountScorer)
+    families = [(c, tuple(p for p in range(n_vars) if p != c and rng.random() < 0.5))
+                for c in range(n_vars)]
+    for scorer in (count_scorer, gaussian_scorer):
+        assert isinstance(scorer, Scorer)
+        assert scorer.n_vars == n_vars
+        for child, parents in families:
+            got = family_through(scorer, child, parents)
+            if scorer is count_scorer:
+                table, q = family_counts(codes, np.asarray(arities), child, parents)
+                assert got == bic_family(table, q, 150)
+            else:
+                assert got == gaussian_bic_family(statistics, child, parents)
+        assert (scorer.evaluations, scorer.hits) == (n_vars, n_vars)
+        assert scorer.total([p for _, p in families]) == math.fsum(
+            scorer.family(c, p) for c, p in families)
+
+
+def test_an_object_without_the_counters_is_not_a_scorer() -> None:
+    """The protocol names what the engines read: a family function alone is not enough."""
+
+    class FamiliesOnly:
+        n_vars = 2
+
+        def family(self, child: int, parents: object) -> float:
+            return 0.0
+
+        def family_by_mask(self, child: int, mask: int) -> float:
+            return 0.0
+
+        def total(self, parent_sets: object) -> float:
+            return 0.0
+
+    assert not isinstance(FamiliesOnly(), Scorer)

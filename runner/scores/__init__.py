@@ -17,6 +17,7 @@ import numpy as np
 
 from runner.catalog import SCORE_EQUIVALENT_SCORES
 from runner.scores.cache import FamilyScorer
+from runner.scores.counts import CountScorer
 from runner.scores.dirichlet import bdeu_family, k2_family
 from runner.scores.gaussian import (
     GAUSSIAN_SCORES,
@@ -57,7 +58,7 @@ def build_scorer(
     cache_limit: int | None = None,
 ) -> FamilyScorer:
     """A cached family scorer of score ``name`` over ``codes`` (shape n_vars x n_rows)."""
-    return FamilyScorer(
+    return CountScorer(
         family_function(name, ess), codes, np.asarray(arities, dtype=np.int64), cache_limit
     )
 

@@ -9,13 +9,21 @@ that occur in the data are kept: the others contribute nothing to any score here
 Complexity: O(N * |parents|) for the codes plus O(N + q * r) for the count, where q is
 the number of parent configurations; when q * r is much larger than N the codes are
 compacted with ``numpy.unique`` first (O(N log N)) so memory stays O(N).
+
+:class:`CountScorer` binds a count-table score ``f(table, q, n_rows)`` to encoded data:
+the :class:`~runner.scores.protocol.Scorer` of the discrete scores.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
+
+from runner.scores.cache import CachedScorer, mask_members
+
+#: A score of one family from its count table: ``f(table, q, n_rows) -> float``.
+CountFamilyScore = Callable[[np.ndarray, int, int], float]
 
 # Above this many cells (relative to the rows) a dense bincount wastes memory, and the
 # occurring family codes are compacted with numpy.unique instead.
@@ -97,3 +105,24 @@ def family_counts(
     table = np.zeros((configs.size, r), dtype=np.int64)
     table[row_of, (occurring % r).astype(np.intp)] = counts
     return table, q
+
+
+class CountScorer(CachedScorer):
+    """Family scores of discrete data from their count tables, cached (see
+    :class:`~runner.scores.cache.CachedScorer`).
+
+    ``codes`` has shape (n_vars, n_rows) and ``arities`` one entry per variable;
+    ``function`` scores one family's count table (:func:`family_counts`).
+    """
+
+    def __init__(self, function: CountFamilyScore, codes: np.ndarray, arities: np.ndarray,
+                 cache_limit: int | None = None) -> None:
+        n_vars, n_rows = codes.shape
+        super().__init__(int(n_vars), int(n_rows), cache_limit)
+        self.function = function
+        self.codes = codes
+        self.arities = arities
+
+    def _compute(self, child: int, mask: int) -> float:
+        table, q = family_counts(self.codes, self.arities, child, mask_members(mask))
+        return self.function(table, q, self.n_rows)

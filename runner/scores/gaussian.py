@@ -69,14 +69,13 @@ the logarithms of the leading and of all the pivots of R_{Z+y}.
 from __future__ import annotations
 
 import math
-import weakref
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from functools import cached_property
 
 import numpy as np
 
-from runner.scores.cache import FamilyScorer, mask_members
+from runner.scores.cache import CachedScorer, mask_members
 from runner.scores.elementary import ln_scalar, log_gamma
 from runner.scores.fixed_order import (
     back_substitute,
@@ -117,17 +116,10 @@ class GaussianStatistics:
         return tuple(self.means.tolist())
 
 
-#: The statistics of the last read-only array seen, by a weak reference to it: the
-#: scorer, the fitted model and the held-out fit of one learn share the learning rows.
-_LAST: list[tuple[weakref.ref[np.ndarray], GaussianStatistics]] = []
-
-
 def sufficient_statistics(values: np.ndarray) -> GaussianStatistics:
-    """Means and scatter matrix of ``values`` (shape n_vars x n_rows, float64).
-
-    A float64 array that owns its data and is read-only (a data set's columns) is
-    remembered: asked again for the same array, the function returns the same statistics
-    without another pass over the rows.
+    """Means and scatter matrix of ``values`` (shape n_vars x n_rows, float64): a pure
+    function of the values, computed once per learn and passed to whoever needs them
+    (the scorer, the fitted model, the held-out fit).
 
     Each entry is the correctly rounded value of the exact one (the scatter about the
     exact means): :func:`runner.scores.fixed_order.exact_moments` sums the rows without
@@ -136,10 +128,6 @@ def sufficient_statistics(values: np.ndarray) -> GaussianStatistics:
     the data's integer limbs (3 to 5 per column for typical data), about 10 to 25 times
     the arithmetic of a plain scatter matrix, and memory for the limbs of 2**15 rows.
     """
-    reusable = (isinstance(values, np.ndarray) and values.dtype == np.float64
-                and not values.flags.writeable and values.flags.owndata)
-    if reusable and _LAST and _LAST[0][0]() is values:
-        return _LAST[0][1]
     data = np.asarray(values, dtype=np.float64)
     if data.ndim != 2 or data.shape[1] == 0:
         raise ValueError("values must be a 2-D array with at least one row")
@@ -152,10 +140,13 @@ def sufficient_statistics(values: np.ndarray) -> GaussianStatistics:
             scatter[i, j] = scatter[j, i] = moments.scatter(i, j)
     means.flags.writeable = False
     scatter.flags.writeable = False
-    stats = GaussianStatistics(int(data.shape[1]), means, scatter)
-    if reusable:
-        _LAST[:] = [(weakref.ref(values), stats)]
-    return stats
+    return GaussianStatistics(int(data.shape[1]), means, scatter)
+
+
+def statistics_of(data: np.ndarray | GaussianStatistics) -> GaussianStatistics:
+    """``data`` itself when it is already the statistics, else
+    :func:`sufficient_statistics` of the values (n_vars x n_rows)."""
+    return data if isinstance(data, GaussianStatistics) else sufficient_statistics(data)
 
 
 def family_matrix(stats: GaussianStatistics, members: Sequence[int],
@@ -305,20 +296,23 @@ def bge_family(stats: GaussianStatistics, child: int, parents: Sequence[int],
 GaussianFamilyScore = Callable[[GaussianStatistics, int, Sequence[int]], float]
 
 
-class GaussianScorer(FamilyScorer):
-    """A :class:`FamilyScorer` over sufficient statistics instead of count tables: the
-    same cache, keys and counters, so every search method uses it unchanged."""
+class GaussianScorer(CachedScorer):
+    """Family scores of continuous data from their sufficient statistics, cached (see
+    :class:`~runner.scores.cache.CachedScorer`): the same keys and counters as the
+    count-based scorer, so every search method uses it unchanged.
 
-    def __init__(self, function: GaussianFamilyScore, stats: GaussianStatistics,
+    ``statistics`` are those of the learning rows (:func:`sufficient_statistics`); the
+    fitted model and the held-out fit of the same learn take the same object.
+    """
+
+    def __init__(self, function: GaussianFamilyScore, statistics: GaussianStatistics,
                  cache_limit: int | None = None) -> None:
-        self.function = function  # type: ignore[assignment]
-        self.stats = stats
-        self.n_vars, self.n_rows = stats.n_vars, stats.n_rows
-        self._start_cache(cache_limit)
+        super().__init__(statistics.n_vars, statistics.n_rows, cache_limit)
+        self.function = function
+        self.statistics = statistics
 
     def _compute(self, child: int, mask: int) -> float:
-        function: GaussianFamilyScore = self.function  # type: ignore[assignment]
-        return function(self.stats, child, mask_members(mask))
+        return self.function(self.statistics, child, mask_members(mask))
 
 
 def gaussian_family_function(name: str, prior: BgePrior | None = None) -> GaussianFamilyScore:

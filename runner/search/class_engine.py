@@ -40,7 +40,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from runner.constraints import Constraints
-from runner.scores.cache import FamilyScorer
+from runner.scores.protocol import Scorer
 from runner.search.engine import RELATIVE_TOLERANCE, BoundEngine
 from runner.search.pdag import (
     Knowledge,
@@ -89,7 +89,7 @@ def cliques_within(pdag: Pdag, candidates: int, room: int) -> Iterator[int]:
 class ClassEngine(BoundEngine):
     """An equivalence class of DAGs with a member that honours the constraints."""
 
-    def __init__(self, scorer: FamilyScorer, constraints: Constraints,
+    def __init__(self, scorer: Scorer, constraints: Constraints,
                  parent_sets: Sequence[Sequence[int]] | None = None) -> None:
         super().__init__(scorer, constraints)
         n = self.n

@@ -39,7 +39,8 @@ import numpy as np
 
 from runner.constraints import Constraints
 from runner.graph import topological_order
-from runner.scores.cache import FamilyScorer, parent_mask
+from runner.scores.cache import parent_mask
+from runner.scores.protocol import Scorer
 
 KINDS = ("add", "delete", "reverse")
 
@@ -61,7 +62,7 @@ class Move:
 class BoundEngine:
     """What every search engine holds: a scorer and constraints over the same variables."""
 
-    def __init__(self, scorer: FamilyScorer, constraints: Constraints) -> None:
+    def __init__(self, scorer: Scorer, constraints: Constraints) -> None:
         if constraints.n_vars != scorer.n_vars:
             raise ValueError("constraints and data disagree on the number of variables")
         self.scorer = scorer
@@ -74,7 +75,7 @@ class MoveEngine(BoundEngine):
 
     def __init__(
         self,
-        scorer: FamilyScorer,
+        scorer: Scorer,
         constraints: Constraints,
         parent_sets: Sequence[Iterable[int]] | None = None,
     ) -> None:

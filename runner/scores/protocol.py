@@ -1,0 +1,48 @@
+"""What a search engine and the pipeline ask of a scorer: the :class:`Scorer` protocol.
+
+A scorer binds one decomposable score to one data set. The engines ask for family scores
+by (child, parent bitmask) or (child, parents), the pipeline for a DAG's total; both read
+the counters for the record and the budget. :class:`~runner.scores.counts.CountScorer`
+(discrete data, from count tables) and :class:`~runner.scores.gaussian.GaussianScorer`
+(continuous data, from sufficient statistics) implement it, sharing the cache of
+:class:`~runner.scores.cache.CachedScorer`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from typing import Protocol, runtime_checkable
+
+
+@runtime_checkable
+class Scorer(Protocol):
+    """A cached decomposable score of one data set.
+
+    ``evaluations`` counts family scores computed (cache misses), ``hits`` the answers
+    served from the cache; both only grow.
+    """
+
+    @property
+    def n_vars(self) -> int:
+        """Number of variables (columns) of the data."""
+        ...
+
+    @property
+    def evaluations(self) -> int:
+        ...
+
+    @property
+    def hits(self) -> int:
+        ...
+
+    def family(self, child: int, parents: Iterable[int]) -> float:
+        """Score of ``child`` given exactly ``parents``."""
+        ...
+
+    def family_by_mask(self, child: int, mask: int) -> float:
+        """Score of ``child`` given the parents whose bits are set in ``mask``."""
+        ...
+
+    def total(self, parent_sets: Iterable[Iterable[int]]) -> float:
+        """Exactly rounded sum of the family scores of a DAG (one parent set per variable)."""
+        ...
