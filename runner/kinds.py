@@ -23,10 +23,12 @@ from typing import Any
 
 import numpy as np
 
+from runner import registry
 from runner.binning import DEFAULT_BINNING, discretise
 from runner.data import Dataset
 from runner.errors import InputError, Problem
-from runner.scores import GAUSSIAN_SCORES, FamilyScorer, build_gaussian_scorer, build_scorer
+from runner.registry import BGeParams, Params
+from runner.scores import FamilyScorer, build_gaussian_scorer, build_scorer
 from runner.scores.gaussian import bge_prior
 
 #: Smallest eigenvalue of the correlation matrix below which it counts as singular.
@@ -53,7 +55,11 @@ class Resolved:
     warnings: list[Problem] = field(default_factory=list)
 
 
+GAUSSIAN_SCORES = registry.scores_of_kind("continuous")
+
+
 def is_gaussian(score_name: str) -> bool:
+    """Whether a score models continuous columns (the registry's ``data_kind``)."""
     return score_name in GAUSSIAN_SCORES
 
 
@@ -82,23 +88,42 @@ def resolve_columns(
 
 
 def make_scorer(score: Mapping[str, Any], dataset: Dataset) -> FamilyScorer:
-    """The cached family scorer of the spec's ``score`` block on a resolved data set."""
-    name = str(score.get("name", "bic"))
-    if is_gaussian(name):
-        if dataset.values is None:
-            raise ValueError("a Gaussian score needs continuous columns")
-        return build_gaussian_scorer(name, dataset.values, alpha_mu=score.get("alpha_mu"),
-                                     alpha_w=score.get("alpha_w"),
-                                     prior_scale=score.get("prior_scale"))
-    return build_scorer(name, dataset.codes, dataset.arities, ess=float(score.get("ess", 1.0)))
+    """The cached family scorer of the spec's ``score`` block on a resolved data set: the
+    registry entry's builder, with the entry's own keys."""
+    entry = registry.score(str(score.get("name", "bic")))
+    return entry.builder.load()(entry.name, entry.params.pick(score), dataset)
+
+
+def discrete_scorer(name: str, params: Params, dataset: Dataset) -> FamilyScorer:
+    """A count-based scorer (``registry.ScoreEntry.builder`` of the discrete scores)."""
+    return build_scorer(name, dataset.codes, dataset.arities, **params.arguments())
+
+
+def gaussian_scorer(name: str, params: Params, dataset: Dataset) -> FamilyScorer:
+    """A scorer on sufficient statistics (the builder of the Gaussian scores)."""
+    if dataset.values is None:
+        raise ValueError("a Gaussian score needs continuous columns")
+    return build_gaussian_scorer(name, dataset.values, **params.arguments())
 
 
 def score_record(score: Mapping[str, Any], n_vars: int) -> dict[str, Any]:
-    """Extra score settings for the record: BGe's prior as used (defaults filled in)."""
-    if score.get("name") != "bge":
+    """Extra score settings for the record (the entry's ``record`` hook): BDeu's ``ess``,
+    BGe's prior as used (defaults filled in)."""
+    entry = registry.score(str(score.get("name", "bic")))
+    if entry.record is None:
         return {}
-    prior = bge_prior(n_vars, score.get("alpha_mu"), score.get("alpha_w"),
-                      score.get("prior_scale"))
+    return entry.record.load()(entry.params.pick(score), n_vars)
+
+
+def params_record(params: Params, n_vars: int) -> dict[str, Any]:
+    """A score's own keys as used."""
+    return params.effective()
+
+
+def bge_record(params: Params, n_vars: int) -> dict[str, Any]:
+    """BGe's prior with its defaults for ``n_vars`` filled in."""
+    assert isinstance(params, BGeParams)
+    prior = bge_prior(n_vars, params.alpha_mu, params.alpha_w, params.prior_scale)
     return {"bge_prior": prior.as_record()}
 
 
@@ -231,10 +256,10 @@ def _for_gaussian(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
                        "kind: continuous" + hint)
         problems.append(Problem(spec_file, message, line=line_of(key), key=key, value=name))
         raise InputError(problems)
-    if score.get("name") == "bge":
+    params = registry.score(name).params.pick(score)
+    if isinstance(params, BGeParams):
         try:
-            bge_prior(len(dataset.names), score.get("alpha_mu"), score.get("alpha_w"),
-                      score.get("prior_scale"))
+            bge_prior(len(dataset.names), params.alpha_mu, params.alpha_w, params.prior_scale)
         except ValueError as exc:
             key = "score." + str(exc).split(" ", 1)[0]
             problems.append(Problem(spec_file, str(exc), line=line_of(key), key=key))

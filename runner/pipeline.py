@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from runner import registry
 from runner.bootstrap import ReplicateJob, bootstrap_block, replicate_seeds, run_replicate
 from runner.codeversion import code_sha256, code_version
 from runner.constraints import Constraints, build_constraints
@@ -26,23 +27,12 @@ from runner.fit import DEFAULT_PSEUDO_COUNT, fit_model
 from runner.graph import edges_from_parents, graph_sha256
 from runner.kinds import is_gaussian, make_scorer, resolve_columns, score_record
 from runner.progress import SILENT, Progress, Reporter
-from runner.scores import SCORE_EQUIVALENT, FamilyScorer
+from runner.registry import RestartParams
+from runner.scores import FamilyScorer
 from runner.scores.gaussian import GaussianScorer, GaussianStatistics
-from runner.search import (
-    DEFAULT_KICK,
-    DEFAULT_PATIENCE,
-    DEFAULT_TENURE,
-    Budget,
-    MoveEngine,
-    RunSummary,
-    SearchOutcome,
-    local_search,
-    with_restarts,
-)
-from runner.search.exact import exact_plan, exact_search
-from runner.search.ges import greedy_equivalence_search
-from runner.search.order import order_plan, order_search
+from runner.search import Budget, MoveEngine, RunSummary, SearchOutcome, local_search, with_restarts
 from runner.search.parent_sets import SearchRefused
+from runner.search.whole import PlanContext, SearchTask
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
 from runner.store import find_twin, model_reference, read_baseline, trace_csv, write_run
 
@@ -147,54 +137,32 @@ def validate(spec_path: str | Path) -> tuple[list[Problem], list[Problem]]:
 
 
 def search_refusal(prepared: Prepared) -> Problem | None:
-    """Why the spec's exhaustive search (order or exact) would be refused, before any
-    score is computed; None when it would run (or the method is a local one)."""
-    search, names = prepared.spec.search, prepared.dataset.names
-    try:
-        if search.method == "ges":
-            ges_plan(prepared.spec.score.name)
-        elif search.method == "order":
-            order_plan(prepared.constraints, total_order(prepared.spec, names), names,
-                       search.max_candidate_sets)
-        elif search.method == "exact":
-            exact_plan(prepared.constraints, names, search.max_variables,
-                       search.max_candidate_sets)
-    except SearchRefused as refused:
-        return Problem(prepared.spec_display, refused.message,
-                       line=prepared.spec.line_of(refused.key), key=refused.key)
-    return None
+    """Why the spec's search would be refused, before any score is computed (a method
+    that needs another kind of score, or the ``plan`` hook of an exhaustive one); None
+    when it would run."""
+    refused = _refusal(prepared)
+    if refused is None:
+        return None
+    return Problem(prepared.spec_display, refused.message,
+                   line=prepared.spec.line_of(refused.key), key=refused.key)
 
 
-def ges_plan(score: str) -> None:
-    """Refuse equivalence-class search under a score that is not score-equivalent: its
-    operators score a class by any one member, which is sound only when every member
-    scores the same (Chickering 2002)."""
-    if score not in SCORE_EQUIVALENT:
-        raise SearchRefused("search.method", (
-            f"search method 'ges' moves between equivalence classes and needs a "
-            f"score-equivalent score, which '{score}' is not (equivalent DAGs can score "
-            f"differently under it); use one of {', '.join(sorted(SCORE_EQUIVALENT))}, or a "
-            f"DAG search such as 'hill-climb' or 'tabu' with '{score}'"))
+def _refusal(prepared: Prepared) -> registry.Refusal | None:
+    spec = prepared.spec
+    entry = registry.method(spec.search.method)
+    refused = registry.compatibility(entry, registry.score(spec.score.name))
+    if refused is None and entry.plan is not None:
+        refused = entry.plan.load()(_params(entry, spec), _context(prepared))
+    return refused
 
 
-def total_order(spec: Spec, names: tuple[str, ...]) -> list[int]:
-    """The variable order for ``order`` search: ``search.order`` when given, else the
-    tiers in sequence, each tier's variables in the order the spec lists them (the
-    documented refinement of a tier with several variables). Every variable must appear.
-    """
-    index = {n: i for i, n in enumerate(names)}
-    listed = list(spec.search.order) if spec.search.order else [v for t in spec.tiers for v in t]
-    key = "search.order" if spec.search.order else "tiers"
-    missing = [n for n in names if n not in listed]
-    if missing:
-        raise SearchRefused(key, (
-            f"search method 'order' needs a total order of all variables; {key} misses "
-            + ", ".join(repr(m) for m in missing)
-            + ("" if spec.search.order else "; list them in tiers or give search.order")))
-    repeated = sorted({n for n in listed if listed.count(n) > 1})
-    if repeated:
-        raise SearchRefused(key, f"{key} lists {', '.join(map(repr, repeated))} more than once")
-    return [index[n] for n in listed]
+def _params(entry: registry.MethodEntry, spec: Spec) -> registry.Params:
+    return entry.params.pick(spec.search.model_dump())
+
+
+def _context(prepared: Prepared) -> PlanContext:
+    return PlanContext(prepared.dataset.names, tuple(tuple(t) for t in prepared.spec.tiers),
+                       prepared.constraints)
 
 
 def input_sha256(spec_hash: str, data_hash: str, version: str, bins: str | None = None) -> str:
@@ -240,50 +208,31 @@ def run_search(
     prepared: Prepared, scorer: FamilyScorer, budget: Budget, rng: np.random.Generator,
     bar: Progress | None = None,
 ) -> tuple[SearchOutcome, list[RunSummary], dict[str, Any], dict[str, Any]]:
-    """Run the spec's search method; return its outcome, the runs of a restarted local
-    search, the method's parameters and any extra record fields. ``bar`` is advanced by
-    exact search (per variable and layer) and restarts (per run)."""
-    search, names, constraints = prepared.spec.search, prepared.dataset.names, prepared.constraints
+    """Run the spec's search method (its registry entry); return its outcome, the runs of
+    a restarted local search, the method's parameters and any extra record fields.
+    ``bar`` is advanced by exact search (per variable and layer) and restarts (per run)."""
+    spec, names, constraints = prepared.spec, prepared.dataset.names, prepared.constraints
+    entry = registry.method(spec.search.method)
     tick = None if bar is None else bar.advance
-    parameters: dict[str, Any] = {}
-    if search.method == "order":
-        order = total_order(prepared.spec, names)
-        outcome, counts = order_search(scorer, constraints, order, budget, list(names),
-                                       limit=search.max_candidate_sets)
-        parameters.update(order=[names[v] for v in order],
-                          max_candidate_sets=search.max_candidate_sets)
-        return outcome, [], parameters, {"candidate_sets": counts, "proven_optimal": False,
-                                         "optimal_for_order": outcome.converged}
-    if search.method == "exact":
-        outcome, counts = exact_search(scorer, constraints, budget, list(names),
-                                       variable_limit=search.max_variables,
-                                       candidate_limit=search.max_candidate_sets, tick=tick)
-        parameters.update(max_variables=search.max_variables,
-                          max_candidate_sets=search.max_candidate_sets)
-        return outcome, [], parameters, {"candidate_sets": counts,
-                                         "proven_optimal": outcome.converged}
     start: list[list[int]] = [[] for _ in names]
     for i, j in sorted(constraints.required):
         start[j].append(i)
-    if search.method == "ges":
-        ges_plan(prepared.spec.score.name)
-        outcome = greedy_equivalence_search(scorer, constraints, budget, rng, start)
-        return outcome, [], parameters, {"proven_optimal": False, "phases": [
-            {"phase": p.phase, "steps": p.steps, "end_score": p.end_score}
-            for p in outcome.phases]}
-    method = local_search(search.method, rng, sample=search.sample,
-                          tabu_tenure=search.tabu_tenure, patience=search.patience)
-    kick = search.kick or DEFAULT_KICK
+    refused = registry.compatibility(entry, registry.score(spec.score.name))
+    if refused is not None:
+        raise SearchRefused(refused.key, refused.message)
+    params = _params(entry, spec)
+    if entry.kind == "whole":
+        task = SearchTask(_context(prepared), scorer, budget, rng, start, tick)
+        found = entry.whole()(params, task)
+        return found.outcome, [], found.parameters, found.extra
+    method = local_search(entry.name, rng, **params.effective())
+    again = RestartParams.pick(spec.search.model_dump()).effective()
     outcome, runs = with_restarts(method, lambda ps: MoveEngine(scorer, constraints, ps), start,
-                                  budget, rng, search.restarts, kick, tick=tick)
-    parameters["restarts"] = search.restarts
-    if search.restarts:
-        parameters["kick"] = kick
-    if search.method == "tabu":
-        parameters.update(tabu_tenure=search.tabu_tenure or DEFAULT_TENURE,
-                          patience=search.patience or DEFAULT_PATIENCE)
-    if search.method == "first-ascent":
-        parameters["sample"] = search.sample
+                                  budget, rng, again["restarts"], again["kick"], tick=tick)
+    parameters: dict[str, Any] = {"restarts": again["restarts"]}
+    if again["restarts"]:
+        parameters["kick"] = again["kick"]
+    parameters.update(params.effective())
     return outcome, runs, parameters, {"proven_optimal": False}
 
 
@@ -307,7 +256,7 @@ def _search_bar(prepared: Prepared, reporter: Reporter) -> Progress | None:
     search, n = prepared.spec.search, len(prepared.dataset.names)
     if search.method == "exact":
         return reporter.bar(f"exact {prepared.spec.name}", 2 * n)
-    if search.method not in ("order", "ges") and search.restarts:
+    if registry.method(search.method).restartable and search.restarts:
         return reporter.bar(f"restarts {prepared.spec.name}", search.restarts + 1)
     return None
 
@@ -409,10 +358,8 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
         "value": total,
         "per_row": total / part.dataset.rows,
         "families": families,
-        "score_equivalent": spec.score.name in SCORE_EQUIVALENT,
+        "score_equivalent": registry.score(spec.score.name).score_equivalent,
     }
-    if spec.score.name == "bdeu":
-        score_block["ess"] = spec.score.ess
     score_block.update(score_record(score_spec, len(names)))
     pseudo_count = spec.fit.pseudo_count if spec.fit is not None else DEFAULT_PSEUDO_COUNT
     gaussian = is_gaussian(score_spec["name"])

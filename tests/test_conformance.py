@@ -1,6 +1,7 @@
 """Conformance checks run over every score and every search method the spec accepts, in
-the manner of scikit-learn's common estimator checks: a new score or method added to the
-lists below is checked by these tests without writing new ones.
+the manner of scikit-learn's common estimator checks: they are parametrized over the
+registry's entries (``runner.registry.SCORES`` and ``METHODS``), so a new score or method
+is checked by these tests without writing new ones.
 
 Properties and their sources:
 
@@ -35,30 +36,19 @@ from conftest import (
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from runner import pipeline
+from runner import pipeline, registry
 from runner.graph import is_acyclic
 from runner.kinds import make_scorer
-from runner.scores import (
-    DISCRETE_SCORES,
-    SCORE_EQUIVALENT,
-    FamilyScorer,
-    build_gaussian_scorer,
-    build_scorer,
-)
+from runner.scores import FamilyScorer, build_gaussian_scorer, build_scorer
 from runner.search.result import SearchOutcome
-from runner.spec import IMPLEMENTED_METHODS, IMPLEMENTED_SCORES, normalised_spec
+from runner.spec import normalised_spec
 
 # --------------------------------------------------------------------------- the registry
-# The one place naming what is checked: switch these to the registry when it exists.
-SCORES: tuple[str, ...] = tuple(IMPLEMENTED_SCORES)
-METHODS: tuple[str, ...] = tuple(IMPLEMENTED_METHODS)
-EQUIVALENT_SCORES: tuple[str, ...] = tuple(s for s in SCORES if s in SCORE_EQUIVALENT)
+SCORES: tuple[str, ...] = registry.SCORE_NAMES
+METHODS: tuple[str, ...] = registry.METHOD_NAMES
+EQUIVALENT_SCORES: tuple[str, ...] = tuple(s.name for s in registry.SCORES if s.score_equivalent)
 #: Scores each search method is run under: one score-equivalent, one not.
 SEARCH_SCORES: tuple[str, ...] = ("bdeu", "k2")
-#: Methods that need a score-equivalent score (pipeline.ges_plan refuses the others).
-NEEDS_EQUIVALENT = frozenset({"ges"})
-#: Methods that apply improving moves only (tabu and ges may step down on their way).
-IMPROVING = frozenset({"hill-climb", "first-ascent", "stochastic"})
 
 REL = 1e-9
 FAST = settings(max_examples=15, deadline=None,
@@ -66,7 +56,7 @@ FAST = settings(max_examples=15, deadline=None,
 
 
 def is_discrete(name: str) -> bool:
-    return name in DISCRETE_SCORES
+    return registry.score(name).data_kind == "discrete"
 
 
 def gaussian_values(parent_sets: list[tuple[int, ...]], rows: int,
@@ -141,8 +131,8 @@ def test_score_equivalent_scores_agree_on_equivalent_dags(
 def test_k2_is_not_score_equivalent() -> None:
     # Heckerman, Geiger & Chickering 1995: K2's uniform Dirichlet prior is not likelihood
     # equivalent, so a -> b and b -> a (one class) score differently; this fixed example
-    # shows it, so the set SCORE_EQUIVALENT is not merely asserted.
-    assert "k2" in SCORES and "k2" not in SCORE_EQUIVALENT
+    # shows it, so the registry's score_equivalent flag is not merely asserted.
+    assert "k2" in SCORES and not registry.score("k2").score_equivalent
     codes = np.array([[0, 0, 0, 1, 1, 1, 1, 0, 1, 0],
                       [0, 1, 2, 2, 2, 1, 2, 0, 2, 0]], dtype=np.uint8)
     scorer = build_scorer("k2", codes, [2, 3])
@@ -219,7 +209,8 @@ def run_once(prepared: pipeline.Prepared) -> tuple[SearchOutcome, FamilyScorer]:
 @given(data=st.data(), seed=st.integers(0, 2**32 - 1))
 def test_every_method_is_seeded_and_never_ends_below_its_start(
         method: str, score: str, data: st.DataObject, seed: int) -> None:
-    if method in NEEDS_EQUIVALENT and score not in SCORE_EQUIVALENT:
+    entry = registry.method(method)
+    if entry.needs_score_equivalent and not registry.score(score).score_equivalent:
         pytest.skip(f"{method} needs a score-equivalent score; {score} is not")
     n = data.draw(st.integers(3, 6), label="n_vars")
     case = data.draw(constraint_cases(n), label="constraints")
@@ -242,5 +233,5 @@ def test_every_method_is_seeded_and_never_ends_below_its_start(
     assert prepared.constraints.admits(first.parent_sets)
     end, begin = scorer.total(first.parent_sets), scorer.total(start)
     assert end >= begin - REL * max(1.0, abs(begin)), (method, end, begin)
-    if method in IMPROVING:  # every applied move raised the score
+    if entry.improving_only:  # every applied move raised the score
         assert all(row.delta > 0 for row in first.trace), first.trace

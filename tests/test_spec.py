@@ -14,9 +14,6 @@ from hypothesis import strategies as st
 
 from runner.errors import InputError, Problem
 from runner.spec import (
-    IMPLEMENTED_KINDS,
-    IMPLEMENTED_METHODS,
-    IMPLEMENTED_SCORES,
     Spec,
     check_spec_against_columns,
     load_spec,
@@ -140,14 +137,6 @@ def test_spec_is_frozen(tmp_path: Path) -> None:
     spec = load_spec(write(tmp_path, BASE))
     with pytest.raises(ValueError):
         spec.name = "other"  # type: ignore[misc]
-
-
-def test_implemented_lists() -> None:
-    assert IMPLEMENTED_SCORES == ("loglik", "aic", "bic", "bdeu", "k2", "gaussian-loglik",
-                                  "gaussian-bic", "bge")
-    assert IMPLEMENTED_KINDS == ("discrete", "continuous")
-    assert IMPLEMENTED_METHODS == ("hill-climb", "first-ascent", "stochastic", "tabu", "ges",
-                                   "order", "exact")
 
 
 # --------------------------------------------------------------------------- the file itself
@@ -445,9 +434,41 @@ def test_variable_in_two_tiers(tmp_path: Path) -> None:
     problems = problems_of(path)
     second = only(problems, "tiers.1.1")
     assert (second.file, second.line, second.value) == (path, 7, "a")
-    assert "'a' is already in tier 0" in second.message and "line 5" in second.message
+    assert "'a' is already in tier 1" in second.message and "line 5" in second.message
     twice = only(problems, "tiers.2.1")
-    assert "'d' is already in tier 2" in twice.message
+    assert "'d' is already in tier 3" in twice.message
+
+
+def test_tier_names_are_kept_only_when_given(tmp_path: Path) -> None:
+    plain = load_spec(write(tmp_path, BASE + "tiers:\n  - [a]\n  - [b]\n"))
+    assert "tier_names" not in normalised_spec(plain)  # older specs keep their hash
+    named = load_spec(write(tmp_path, BASE + "tiers:\n  - [a]\n  - [b]\n"
+                                             "tier_names: [raw, firing]\n", "named.yaml"))
+    assert named.tier_names == ["raw", "firing"] and named.warnings == []
+    assert normalised_spec(named)["tier_names"] == ["raw", "firing"]
+    assert spec_sha256(named) != spec_sha256(plain)
+
+
+def test_tier_names_need_one_distinct_name_per_tier(tmp_path: Path) -> None:
+    path = write(tmp_path, BASE + "tiers:\n  - [a]\n  - [b]\n  - [c]\n"
+                                  "tier_names: [raw, raw]\n")
+    problems = problems_of(path)
+    count = only(problems, "tier_names")
+    assert (count.file, count.line) == (path, 8)
+    assert "2 names for 3 tiers" in count.message and "line 4" in count.message
+    repeated = only(problems, "tier_names.1")
+    assert repeated.line == 8 and "'raw' already names tier 1" in repeated.message
+
+
+def test_tier_messages_number_from_one_and_show_names(tmp_path: Path) -> None:
+    text = (BASE + "tiers:\n  - [a, b]\n  - [c, a]\ntier_names: [raw, firing]\n"
+            "required:\n  - [c, b]\n")
+    problems = problems_of(write(tmp_path, text))
+    repeat = only(problems, "tiers.1.1")
+    assert "'a' is already in tier 1 (\"raw\")" in repeat.message
+    back = only(problems, "required.0")
+    assert "'c' is in tier 2 (\"firing\") and 'b' in the earlier tier 1 (\"raw\")" in \
+        back.message
 
 
 def test_required_edge_against_tiers(tmp_path: Path) -> None:
@@ -476,6 +497,14 @@ def test_required_cycle(tmp_path: Path) -> None:
     [problem] = problems_of(write(tmp_path, text))
     assert problem.key == "required.1" and problem.line == 6
     assert "cycle: a -> b -> c -> a" in problem.message
+
+
+def test_required_cycle_shown_is_a_shortest_one(tmp_path: Path) -> None:
+    # a -> c -> d -> a is a cycle too; the message shows the shortest through 'a'
+    text = BASE + "required:\n  - [a, c]\n  - [c, d]\n  - [d, a]\n  - [a, b]\n  - [b, a]\n"
+    [problem] = problems_of(write(tmp_path, text))
+    assert problem.message == "required edges form a cycle: a -> b -> a"
+    assert problem.key == "required.3"
 
 
 def test_two_separate_required_cycles(tmp_path: Path) -> None:
@@ -570,7 +599,7 @@ def test_check_against_columns_clean(tmp_path: Path) -> None:
 
 def test_json_schema_accepts_the_example_and_refuses_unknown_keys() -> None:
     jsonschema = pytest.importorskip("jsonschema")
-    from runner.spec import _SpecLoader
+    from runner.spec.loader import _SpecLoader
 
     schema = spec_json_schema()
     assert schema["$schema"] == "https://json-schema.org/draft/2020-12/schema"

@@ -5,7 +5,8 @@ The total score of a DAG is the sum of its family scores. :func:`build_scorer` b
 score to encoded data and returns a :class:`~runner.scores.cache.FamilyScorer`, which
 counts and caches families by (child, parent set). The scores of continuous data
 (:mod:`runner.scores.gaussian`) work from sufficient statistics instead of counts;
-:func:`build_gaussian_scorer` binds them, to the same scorer interface.
+:func:`build_gaussian_scorer` binds them, to the same scorer interface. Which scores
+exist, their parameters and defaults are the registry's (:mod:`runner.registry`).
 """
 
 from __future__ import annotations
@@ -15,46 +16,42 @@ from functools import partial
 
 import numpy as np
 
-from runner.catalog import SCORE_EQUIVALENT_SCORES
+from runner import registry
 from runner.scores.cache import FamilyScorer
 from runner.scores.counts import CountScorer
-from runner.scores.dirichlet import bdeu_family, k2_family
+from runner.scores.dirichlet import DEFAULT_ESS
 from runner.scores.gaussian import (
-    GAUSSIAN_SCORES,
     GaussianScorer,
     bge_prior,
     gaussian_family_function,
     sufficient_statistics,
 )
-from runner.scores.likelihood import aic_family, bic_family, loglik_family
 
 FamilyScore = Callable[[np.ndarray, int, int], float]
 
 DISCRETE_SCORES: dict[str, FamilyScore] = {
-    "loglik": loglik_family,
-    "aic": aic_family,
-    "bic": bic_family,
-    "bdeu": bdeu_family,
-    "k2": k2_family,
+    entry.name: entry.family.load() for entry in registry.SCORES if entry.family is not None
 }
+GAUSSIAN_SCORES: tuple[str, ...] = registry.scores_of_kind("continuous")
 
-SCORE_EQUIVALENT = SCORE_EQUIVALENT_SCORES
+SCORE_EQUIVALENT = registry.SCORE_EQUIVALENT_SCORES
 
 
-def family_function(name: str, ess: float = 1.0) -> FamilyScore:
-    """The family score called ``name``; ``ess`` is BDeu's equivalent sample size."""
+def family_function(name: str, ess: float = DEFAULT_ESS) -> FamilyScore:
+    """The family score called ``name``; ``ess`` is BDeu's equivalent sample size (the
+    keys a score does not take are not passed to it)."""
     if name not in DISCRETE_SCORES:
         raise ValueError(f"unknown score {name!r}; known: {', '.join(DISCRETE_SCORES)}")
-    if name == "bdeu":
-        return partial(bdeu_family, ess=ess)
-    return DISCRETE_SCORES[name]
+    arguments = registry.score(name).params.pick({"ess": ess}).arguments()
+    function = DISCRETE_SCORES[name]
+    return partial(function, **arguments) if arguments else function
 
 
 def build_scorer(
     name: str,
     codes: np.ndarray,
     arities: np.ndarray | list[int],
-    ess: float = 1.0,
+    ess: float = DEFAULT_ESS,
     cache_limit: int | None = None,
 ) -> FamilyScorer:
     """A cached family scorer of score ``name`` over ``codes`` (shape n_vars x n_rows)."""
@@ -78,7 +75,8 @@ def build_gaussian_scorer(
     documented defaults) are ignored by the other scores; ``ValueError`` for bad ones.
     """
     stats = sufficient_statistics(values)
-    prior = bge_prior(stats.n_vars, alpha_mu, alpha_w, prior_scale) if name == "bge" else None
+    bge = name in registry.SCORE_NAMES and registry.score(name).params is registry.BGeParams
+    prior = bge_prior(stats.n_vars, alpha_mu, alpha_w, prior_scale) if bge else None
     return GaussianScorer(gaussian_family_function(name, prior), stats, cache_limit)
 
 

@@ -25,7 +25,10 @@ from __future__ import annotations
 
 import numpy as np
 
+from runner.registry import BDeuParams, default
 from runner.scores.tables import rising_log_table, to_float
+
+DEFAULT_ESS: float = default(BDeuParams, "ess")
 
 
 def dirichlet_family(table: np.ndarray, a_jk: float, a_j: float, n_rows: int) -> float:
@@ -42,7 +45,7 @@ def dirichlet_family(table: np.ndarray, a_jk: float, a_j: float, n_rows: int) ->
     return to_float(total, bits)
 
 
-def bdeu_family(table: np.ndarray, q: int, n_rows: int, ess: float = 1.0) -> float:
+def bdeu_family(table: np.ndarray, q: int, n_rows: int, ess: float = DEFAULT_ESS) -> float:
     """BDeu family score: Dirichlet hyperparameters ess / (q r) in every cell, so ess / q
     per parent configuration."""
     return dirichlet_family(table, ess / (q * table.shape[1]), ess / q, n_rows)

@@ -23,6 +23,7 @@ from collections.abc import Callable, Sequence
 import numpy as np
 
 from runner.constraints import Constraints
+from runner.registry import ExactParams, default
 from runner.scores.cache import FamilyScorer, parent_mask
 from runner.search.budget import Budget
 from runner.search.parent_sets import (
@@ -34,7 +35,7 @@ from runner.search.parent_sets import (
 )
 from runner.search.result import SearchOutcome
 
-DEFAULT_VARIABLE_LIMIT = 20
+DEFAULT_VARIABLE_LIMIT: int = default(ExactParams, "max_variables")
 
 
 def memory_estimate(n: int) -> int:

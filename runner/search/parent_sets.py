@@ -12,8 +12,9 @@ from collections.abc import Iterator, Sequence
 from math import comb
 
 from runner.constraints import Constraints
+from runner.registry import CandidateParams, default
 
-DEFAULT_CANDIDATE_LIMIT = 1_000_000
+DEFAULT_CANDIDATE_LIMIT: int = default(CandidateParams, "max_candidate_sets")
 
 
 class SearchRefused(Exception):

@@ -13,11 +13,12 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from runner.registry import RestartParams, default
 from runner.search.budget import Budget
 from runner.search.engine import MoveEngine
 from runner.search.result import SearchOutcome, TraceRow
 
-DEFAULT_KICK = 5
+DEFAULT_KICK: int = default(RestartParams, "kick")
 
 
 @dataclass(frozen=True)

@@ -26,13 +26,14 @@ from collections import deque
 
 import numpy as np
 
+from runner.registry import TabuParams, default
 from runner.search.budget import Budget
 from runner.search.engine import Move, MoveEngine
 from runner.search.hill_climb import hill_climb
 from runner.search.result import SearchOutcome, TraceRow
 
-DEFAULT_TENURE = 10
-DEFAULT_PATIENCE = 50
+DEFAULT_TENURE: int = default(TabuParams, "tabu_tenure")
+DEFAULT_PATIENCE: int = default(TabuParams, "patience")
 
 
 def undo_of(move: Move) -> Move:

@@ -1,0 +1,461 @@
+"""Reading a spec file: the line-tracking YAML loader, and every problem with its line.
+
+:func:`load_spec` reads a spec file and returns a frozen :class:`~runner.spec.models.Spec`,
+or raises :class:`~runner.errors.InputError` carrying every problem it found, each with
+the file, the line, the dotted key path and the offending value. The file is composed
+with a YAML loader derived from ``yaml.SafeLoader`` (no object construction); only
+``true``/``false`` are booleans (so a key ``on`` stays the text ``on``) and dates stay
+text.
+
+Checking runs in three passes, all of whose problems are reported together:
+
+1. the YAML node tree: syntax, duplicate keys, tags that have no place in a spec;
+2. the models (:mod:`runner.spec.models`): unknown keys (with a "did you mean"), types,
+   ranges, allowed values; pydantic's errors become problems here;
+3. rules across keys (:mod:`runner.spec.rules`).
+
+A pass-3 rule runs only when none of the key paths it reads failed pass 2, so one broken
+key never hides the problems of unrelated ones.
+"""
+
+from __future__ import annotations
+
+import copy
+import difflib
+import re
+import types
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Annotated, Any, Literal, Union, get_args, get_origin
+
+import yaml
+from pydantic import BaseModel, ValidationError
+
+from runner.errors import InputError, Problem
+from runner.spec.models import OPTIONAL_SECTIONS, PATTERN_HINTS, Spec, nearest_line
+from runner.spec.rules import overlaps, rule_problems
+
+_MAX_NODES = 200_000
+
+
+# --------------------------------------------------------------------------- public API
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Read and check a spec file; raise InputError with every problem found in it."""
+    file = str(path)
+    text, problems = _read_text(Path(path), file)
+    if text is None:
+        raise InputError(problems)
+    root, problems = _compose(text, file)
+    if problems:
+        raise InputError(problems)
+    if root is None or (isinstance(root, yaml.ScalarNode) and root.tag == NULL_TAG):
+        raise InputError(Problem(file, "the spec is empty; it needs at least 'name' and "
+                                       "'dataset'"))
+    tree = _build_tree(root, file)
+    if not isinstance(tree.data, dict):
+        if tree.problems:
+            raise InputError(tree.problems)
+        raise InputError(Problem(file, "the top level of a spec must be a mapping of keys",
+                                 line=root.start_mark.line + 1, value=_shown(tree.data)))
+    spec, problems = _validate(tree.data, tree.lines, file)
+    problems = [p for p in problems if not _inside_any(p.key or "", tree.refused)]
+    all_problems = _sorted_problems(tree.problems + problems)
+    partial = spec if spec is not None else _partial_spec(
+        tree.data, frozenset(p.key or "" for p in all_problems))
+    if partial is not None:
+        partial.attach_source(Path(path).resolve(), file, tree.lines, all_problems)
+    if spec is None or any(p.severity == "error" for p in all_problems):
+        error = InputError(all_problems)
+        # The parts that passed, so callers can still check the data and the names in it.
+        dataset_ok = not any(overlaps("dataset", p.key or "") or not p.key
+                             for p in all_problems if p.severity == "error")
+        error.partial_spec = partial if dataset_ok else None
+        raise error
+    return spec
+
+
+# --------------------------------------------------------------------------- reading YAML
+
+
+BOOL_TAG = "tag:yaml.org,2002:bool"
+TIMESTAMP_TAG = "tag:yaml.org,2002:timestamp"
+FLOAT_TAG = "tag:yaml.org,2002:float"
+NULL_TAG = "tag:yaml.org,2002:null"
+_PLAIN_TAGS = frozenset(f"tag:yaml.org,2002:{t}" for t in
+                        ("str", "int", "float", "bool", "null", "map", "seq"))
+
+
+class _SpecLoader(yaml.SafeLoader):
+    """SafeLoader, YAML 1.2 style: only true/false are booleans, dates stay text, and 1e-9
+    is a number."""
+
+
+_SpecLoader.yaml_implicit_resolvers = {
+    first: [(tag, rx) for tag, rx in resolvers if tag not in (BOOL_TAG, TIMESTAMP_TAG)]
+    for first, resolvers in yaml.SafeLoader.yaml_implicit_resolvers.items()
+}
+_SpecLoader.add_implicit_resolver(
+    BOOL_TAG, re.compile(r"^(?:true|True|TRUE|false|False|FALSE)$"), list("tTfF"))
+_SpecLoader.add_implicit_resolver(  # 1e-9 is a number too, not only 1.0e-9
+    FLOAT_TAG, re.compile(r"^[-+]?[0-9][0-9_]*(?:\.[0-9_]*)?[eE][-+]?[0-9]+$"),
+    list("-+0123456789"))
+
+
+
+def _read_text(path: Path, file: str) -> tuple[str | None, list[Problem]]:
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        return None, [Problem(file, "no such spec file")]
+    except IsADirectoryError:
+        return None, [Problem(file, "is a folder, not a spec file")]
+    except PermissionError:
+        return None, [Problem(file, "the spec file cannot be read: permission denied")]
+    except OSError as exc:
+        return None, [Problem(file, f"the spec file cannot be read: {exc.strerror or exc}")]
+    try:
+        return raw.decode("utf-8-sig"), []
+    except UnicodeDecodeError as exc:
+        return None, [Problem(file, f"the spec file is not UTF-8 text (byte {exc.start})")]
+
+def _compose(text: str, file: str) -> tuple[yaml.Node | None, list[Problem]]:
+    try:
+        return yaml.compose(text, Loader=_SpecLoader), []
+    except yaml.MarkedYAMLError as exc:
+        return None, [_yaml_problem(exc, file)]
+    except yaml.reader.ReaderError as exc:
+        return None, [_reader_problem(exc, text, file)]
+    except yaml.YAMLError as exc:
+        return None, [Problem(file, f"not valid YAML: {exc}")]
+    except RecursionError:
+        return None, [Problem(file, "not a usable spec: the YAML is nested too deeply")]
+
+def _yaml_problem(exc: yaml.MarkedYAMLError, file: str) -> Problem:
+    mark = exc.problem_mark or exc.context_mark
+    problem = exc.problem or "cannot be parsed"
+    context = exc.context or ""
+    if exc.context_mark is not None and exc.context_mark is not mark and context:
+        context += f" at line {exc.context_mark.line + 1}"
+    if not context:
+        message = problem
+    elif context.startswith("while"):
+        message = f"{problem} ({context})"
+    else:
+        message = f"{context}, {problem}"
+    if mark is not None:
+        message += f", column {mark.column + 1}"
+    return Problem(file, "YAML syntax error: " + message,
+                   line=None if mark is None else mark.line + 1)
+
+def _reader_problem(exc: yaml.reader.ReaderError, text: str, file: str) -> Problem:
+    line = text[: exc.position].count("\n") + 1 if isinstance(exc.position, int) else None
+    code = exc.character if isinstance(exc.character, int) else ord(str(exc.character)[:1] or "?")
+    return Problem(file, f"the file holds a character YAML does not allow (U+{code:04X})",
+                   line=line)
+
+
+@dataclass
+class _Tree:
+    """Plain data built from a composed YAML node tree, with key lines and problems."""
+
+    file: str
+    data: Any = None
+    lines: dict[str, int] = field(default_factory=dict)
+    problems: list[Problem] = field(default_factory=list)
+    nodes: int = 0
+    refused: set[str] = field(default_factory=set)
+
+    def refuse(self, message: str, line: int, key: str | None) -> None:
+        """Record a problem with a node; its value becomes null and is not reported again."""
+        self.problems.append(Problem(self.file, message, line=line, key=key))
+        self.refused.add(key or "")
+
+
+def _build_tree(root: yaml.Node, file: str) -> _Tree:
+    tree = _Tree(file)
+    constructor = yaml.constructor.SafeConstructor()
+    try:
+        tree.data = _node_data(root, (), tree, constructor, frozenset())
+    except RecursionError:
+        tree.problems.append(Problem(file, "not a usable spec: the YAML is nested too deeply"))
+    return tree
+
+
+def _node_data(node: yaml.Node, path: tuple[str, ...], tree: _Tree,
+               constructor: yaml.constructor.SafeConstructor,
+               active: frozenset[int]) -> Any:
+    tree.nodes += 1
+    line = node.start_mark.line + 1
+    key = ".".join(path) or None
+    if tree.nodes > _MAX_NODES:
+        if tree.nodes == _MAX_NODES + 1:
+            tree.refuse("the spec is too large once its aliases are expanded", line, key)
+        return None
+    if id(node) in active:
+        tree.refuse("an alias refers to itself", line, key)
+        return None
+    if node.tag not in _PLAIN_TAGS:
+        tree.refuse(f"the YAML tag '{node.tag}' has no place in a spec; write plain values",
+                    line, key)
+        return None
+    inner = active | {id(node)}
+    if isinstance(node, yaml.MappingNode):
+        return _mapping_data(node, path, tree, constructor, inner)
+    if isinstance(node, yaml.SequenceNode):
+        items = []
+        for index, item in enumerate(node.value):
+            tree.lines[".".join((*path, str(index)))] = item.start_mark.line + 1
+            items.append(_node_data(item, (*path, str(index)), tree, constructor, inner))
+        return items
+    try:
+        return constructor.construct_object(node, deep=True)
+    except (yaml.YAMLError, ValueError) as exc:
+        tree.refuse(f"unreadable value {node.value!r}: {exc}", line, key)
+        return None
+
+
+def _mapping_data(node: yaml.MappingNode, path: tuple[str, ...], tree: _Tree,
+                  constructor: yaml.constructor.SafeConstructor,
+                  active: frozenset[int]) -> dict[str, Any]:
+    result: dict[str, Any] = {}
+    first_line: dict[str, int] = {}
+    for key_node, value_node in node.value:
+        line = key_node.start_mark.line + 1
+        if not isinstance(key_node, yaml.ScalarNode):
+            tree.problems.append(Problem(tree.file, "a key must be plain text, not a list or "
+                                         "mapping", line=line, key=".".join(path) or None))
+            continue
+        name = str(key_node.value)
+        dotted = ".".join((*path, name))
+        if name in first_line:
+            tree.problems.append(Problem(
+                tree.file, f"duplicate key '{name}'; it is first given at line "
+                f"{first_line[name]}", line=line, key=dotted))
+            continue
+        first_line[name] = line
+        tree.lines[dotted] = line
+        result[name] = _node_data(value_node, (*path, name), tree, constructor, active)
+    return result
+
+
+# --------------------------------------------------------------------------- pass 2: models
+
+
+def _validate(data: dict[str, Any], lines: dict[str, int],
+              file: str) -> tuple[Spec | None, list[Problem]]:
+    try:
+        spec = Spec.model_validate(data)
+    except ValidationError as exc:
+        problems = _dedupe(_model_problem(err, data, lines, file) for err in exc.errors())
+    else:
+        return spec, rule_problems(spec, data, lines, file, frozenset())
+    broken = frozenset(p.key or "" for p in problems)
+    partial = _partial_spec(data, broken)
+    if partial is not None:
+        problems += rule_problems(partial, data, lines, file, broken)
+    return None, problems
+
+
+def _partial_spec(data: dict[str, Any], broken: frozenset[str]) -> Spec | None:
+    """A spec from the parts that passed: broken keys dropped (defaults apply), stand-ins for
+    broken required keys. Rules only read it where none of their keys are broken."""
+    good = copy.deepcopy(data)
+    for key in broken:
+        _drop(good, key.split(".") if key else [])
+    for section in OPTIONAL_SECTIONS:  # a broken section goes whole
+        if any(overlaps(section, key) for key in broken):
+            good.pop(section, None)
+    good.setdefault("name", "stand-in")
+    if not isinstance(good.get("dataset"), dict):
+        good["dataset"] = {}
+    good["dataset"].setdefault("path", ".")
+    try:
+        return Spec.model_validate(good)
+    except ValidationError:
+        return None
+
+
+def _drop(data: Any, parts: list[str]) -> None:
+    """Delete the innermost mapping key on an existing path (a list item drops its list)."""
+    current, last = data, None
+    for part in parts:
+        if isinstance(current, dict) and part in current:
+            last = (current, part)
+            current = current[part]
+        elif isinstance(current, list) and part.isdigit() and int(part) < len(current):
+            current = current[int(part)]
+        else:
+            return
+    if last is not None:
+        del last[0][last[1]]
+
+
+def _inside_any(key: str, roots: set[str]) -> bool:
+    """Whether a key path is one of ``roots`` or below one of them."""
+    return any(not root or key == root or key.startswith(root + ".") for root in roots)
+
+
+def _model_problem(err: Any, data: Any, lines: dict[str, int], file: str) -> Problem:
+    path = _clean_loc(err["loc"], data, err["type"] == "missing")
+    key = ".".join(path) or None
+    kind = err["type"]
+    value = None if kind in ("missing", "extra_forbidden") else _shown(err.get("input"))
+    return Problem(file, _model_message(err, path), line=nearest_line(lines, key or ""),
+                   key=key, value=value)
+
+
+def _clean_loc(loc: tuple[Any, ...], data: Any, missing: bool) -> tuple[str, ...]:
+    """Keep the parts of a pydantic location that name keys or list items of the data."""
+    out: list[str] = []
+    current = data
+    for index, part in enumerate(loc):
+        if isinstance(current, dict) and isinstance(part, str) and part in current:
+            current = current[part]
+        elif isinstance(current, list) and isinstance(part, int) and 0 <= part < len(current):
+            current = current[part]
+        elif not (missing and index == len(loc) - 1):
+            continue
+        out.append(str(part))
+    return tuple(out)
+
+
+def _model_message(err: Any, path: tuple[str, ...]) -> str:
+    kind, ctx = err["type"], err.get("ctx") or {}
+    if kind == "missing":
+        return "is required"
+    if kind == "extra_forbidden":
+        return _unknown_key_message(path)
+    if kind == "literal_error":
+        return _choice_message(path, err.get("input"))
+    fixed = {
+        "int_type": "must be a whole number", "float_type": "must be a number",
+        "string_type": "must be text (quote it if it looks like a number or null)",
+        "bool_type": "must be true or false", "list_type": "must be a list",
+        "dict_type": "must be a mapping of keys", "model_type": "must be a mapping of keys",
+        "finite_number": "must be a finite number",
+    }
+    if kind in fixed:
+        return fixed[kind]
+    bounds = {"greater_than_equal": ("ge", "must be at least"),
+              "greater_than": ("gt", "must be greater than"),
+              "less_than_equal": ("le", "must be at most"),
+              "less_than": ("lt", "must be less than")}
+    if kind in bounds:
+        name, text = bounds[kind]
+        return f"{text} {ctx.get(name)}"
+    if kind == "string_pattern_mismatch":
+        pattern = str(ctx.get("pattern", ""))
+        return PATTERN_HINTS.get(pattern, f"must match the pattern {pattern}")
+    if kind in ("too_short", "string_too_short"):
+        return _length_message("at least", ctx.get("min_length"), kind)
+    if kind in ("too_long", "string_too_long"):
+        return _length_message("at most", ctx.get("max_length"), kind)
+    message = str(err.get("msg", "is not valid"))
+    return message.removeprefix("Value error, ")
+
+
+def _length_message(bound: str, count: Any, kind: str) -> str:
+    if kind.startswith("string"):
+        return "must not be empty" if count == 1 and bound == "at least" else (
+            f"must have {bound} {count} characters")
+    noun = "item" if count == 1 else "items"
+    return f"must have {bound} {count} {noun}"
+
+
+def _unknown_key_message(path: tuple[str, ...]) -> str:
+    name = path[-1] if path else "?"
+    valid = _keys_at(path[:-1])
+    message = f"unknown key '{name}'"
+    close = difflib.get_close_matches(name, valid, n=1)
+    if close:
+        return message + f"; did you mean '{close[0]}'?"
+    if valid:
+        message += "; valid keys here: " + ", ".join(valid)
+    return message
+
+
+def _choice_message(path: tuple[str, ...], given: Any) -> str:
+    allowed = [str(a) for a in _literal_values(_type_at(path))]
+    message = "must be one of " + ", ".join(f"'{a}'" for a in allowed)
+    if isinstance(given, str):
+        close = difflib.get_close_matches(given, allowed, n=1)
+        if close:
+            message += f"; did you mean '{close[0]}'?"
+    return message
+
+
+def _strip(tp: Any) -> Any:
+    """Drop Annotated and Optional wrappers from a type."""
+    while True:
+        origin = get_origin(tp)
+        if origin is Annotated:
+            tp = get_args(tp)[0]
+        elif origin in (Union, types.UnionType):
+            inner = [a for a in get_args(tp) if a is not type(None)]
+            if len(inner) != 1:
+                return tp
+            tp = inner[0]
+        else:
+            return tp
+
+
+def _child_type(tp: Any, part: str) -> Any:
+    tp = _strip(tp)
+    if isinstance(tp, type) and issubclass(tp, BaseModel):
+        found = tp.model_fields.get(part)
+        return None if found is None else found.annotation
+    origin = get_origin(tp)
+    if origin is list:
+        return get_args(tp)[0]
+    if origin is dict:
+        return get_args(tp)[1]
+    return None
+
+
+def _type_at(path: Sequence[str]) -> Any:
+    tp: Any = Spec
+    for part in path:
+        tp = _child_type(tp, part)
+        if tp is None:
+            return None
+    return tp
+
+
+def _keys_at(path: Sequence[str]) -> list[str]:
+    tp = _strip(_type_at(path))
+    if isinstance(tp, type) and issubclass(tp, BaseModel):
+        return list(tp.model_fields)
+    return []
+
+
+def _literal_values(tp: Any) -> tuple[Any, ...]:
+    tp = _strip(tp)
+    return get_args(tp) if get_origin(tp) is Literal else ()
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _shown(value: Any) -> Any:
+    """A value small enough to show in a message."""
+    if isinstance(value, dict):
+        return None
+    text = repr(value)
+    return value if len(text) <= 200 else text[:197] + "..."
+
+
+def _dedupe(problems: Iterator[Problem] | list[Problem]) -> list[Problem]:
+    seen: set[tuple[str | None, str]] = set()
+    out = []
+    for p in problems:
+        if (p.key, p.message) not in seen:
+            seen.add((p.key, p.message))
+            out.append(p)
+    return out
+
+
+def _sorted_problems(problems: list[Problem]) -> list[Problem]:
+    return sorted(problems, key=lambda p: (p.line is not None, p.line or 0))

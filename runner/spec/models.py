@@ -1,0 +1,347 @@
+"""The spec's models: pydantic, frozen, unknown keys refused; names and patterns.
+
+The ``score:`` and ``search:`` sections take their keys from the registry's parameter
+models (:mod:`runner.registry`): the allowed score and method names, and every default of
+a score's or method's own key, are written there once. Reading a file and turning errors
+into problems with lines is :mod:`runner.spec.loader`; the rules across keys are
+:mod:`runner.spec.rules`.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+from pathlib import Path
+from typing import TYPE_CHECKING, Annotated, Any, Literal
+
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    ConfigDict,
+    Field,
+    PrivateAttr,
+    StrictBool,
+    StrictInt,
+    StrictStr,
+    WithJsonSchema,
+    model_validator,
+)
+
+from runner.errors import Problem
+from runner.fields import Count, PositiveCount, Real, Variable
+from runner.registry import (
+    METHOD_NAMES,
+    SCORE_NAMES,
+    BDeuParams,
+    BGeParams,
+    ExactParams,
+    FirstAscentParams,
+    OrderParams,
+    RestartParams,
+    TabuParams,
+    default_method,
+)
+
+IMPLEMENTED_KINDS = ("discrete", "continuous")
+OPTIONAL_SECTIONS = ("bootstrap", "fit", "evaluation")  # a broken one is dropped whole
+
+NAME_PATTERN = r"^[a-z0-9]+(-[a-z0-9]+)*$"
+SHA256_PATTERN = r"^[0-9a-f]{64}$"
+SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
+TIER_NAME_LENGTH = 40
+
+PATTERN_HINTS = {
+    NAME_PATTERN: "must be lowercase letters and digits, in words joined by single '-'",
+    SHA256_PATTERN: "must be 64 lowercase hexadecimal digits",
+}
+
+if TYPE_CHECKING:
+    ScoreName = str
+    MethodName = str
+else:  # the allowed names, from the registry (a Literal gives "must be one of ...")
+    ScoreName = Literal[SCORE_NAMES]
+    MethodName = Literal[METHOD_NAMES]
+
+
+# --------------------------------------------------------------------------- field types
+
+
+def _distinct_ends(pair: list[str]) -> list[str]:
+    if len(pair) == 2 and pair[0] == pair[1]:
+        raise ValueError(f"an edge needs two different variables, not '{pair[0]}' twice")
+    return pair
+
+
+Pair = Annotated[
+    list[Variable],
+    Field(min_length=2, max_length=2),
+    AfterValidator(_distinct_ends),
+    WithJsonSchema({"type": "array", "items": {"type": "string", "minLength": 1},
+                    "minItems": 2, "maxItems": 2}),
+]
+TierName = Annotated[StrictStr, Field(min_length=1, max_length=TIER_NAME_LENGTH)]
+
+
+class _Section(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+# --------------------------------------------------------------------------- the models
+
+
+class ColumnSpec(_Section):
+    """How one column of the data is read."""
+
+    kind: Literal["discrete", "continuous"] = Field(
+        "discrete", description="discrete: values are states; continuous: numbers (binned "
+        "for a discrete score, as they are for a Gaussian one). Undeclared numeric columns "
+        "with more distinct values than max_states are continuous.")
+    states: Annotated[list[Variable], Field(min_length=1, json_schema_extra={
+        "uniqueItems": True})] | None = Field(
+        None, description="discrete only: the states, in this order; a value not listed is "
+        "an error.")
+    bins: Annotated[StrictInt, Field(ge=2)] | None = Field(
+        None, description="continuous only: number of bins (at least 2); makes the column "
+        "discrete for a discrete score.")
+    binning: Literal["quantile", "equal-width"] | None = Field(
+        None, description="continuous only: how bin edges are chosen (default quantile).")
+
+
+class DatasetSpec(_Section):
+    """The data file and how to read it."""
+
+    path: Annotated[StrictStr, Field(min_length=1)] = Field(
+        description="CSV file, relative to the spec file's folder.")
+    sha256: Annotated[StrictStr, Field(pattern=SHA256_PATTERN)] | None = Field(
+        None, description="Optional pin: sha256 of the data file; a different file stops the "
+        "run.")
+    missing: Literal["error", "drop-rows"] = Field(
+        "error", description="What an empty cell does: stop with an error, or drop its row.")
+    max_states: Annotated[StrictInt, Field(ge=2)] = Field(
+        64, description="Most distinct values a discrete column may have; an undeclared "
+        "numeric column with more is continuous.")
+    columns: dict[str, ColumnSpec] = Field(
+        default_factory=dict, description="Optional per-column kind and state order.")
+
+
+class ScoreSpec(BGeParams, BDeuParams, _Section):
+    """The score a structure is judged by; its keys are the registry's score parameters
+    (:mod:`runner.registry`), each with its one default."""
+
+    name: ScoreName = Field("bic", description="Score function.")
+
+
+class BudgetSpec(_Section):
+    """When a search stops at the latest; the best graph so far is kept."""
+
+    max_steps: PositiveCount | None = Field(10000, description="Most moves applied; null: no "
+                                            "limit.")
+    max_evaluations: PositiveCount | None = Field(
+        None, description="Most family scores computed; null: no limit.")
+    max_seconds: Annotated[Real, Field(gt=0)] | None = Field(
+        600.0, description="Wall-clock limit in seconds; null: no limit.")
+
+
+class SearchSpec(TabuParams, FirstAscentParams, OrderParams, ExactParams, RestartParams,
+                 _Section):
+    """How the space of graphs is searched; the method's own keys (and the restart keys of
+    the local methods) are the registry's method parameters (:mod:`runner.registry`),
+    inherited with their types, defaults and descriptions. (The parameter models' helpers,
+    such as ``effective``, are for those models: the pipeline picks the chosen method's
+    model out of this section.)"""
+
+    method: MethodName = Field("hill-climb", description=(
+        "Search method; 'ges' (equivalence classes) needs a score-equivalent score. When "
+        "absent: 'ges' for score-equivalent scores, 'hill-climb' for k2."))
+    start: Literal["empty", "required"] = Field(
+        "empty", description="Start graph: no edges, or the required edges.")
+    seed: Count = Field(0, description="Random seed (ties, restarts, sampling).")
+    budget: BudgetSpec = Field(default_factory=BudgetSpec, description="Stopping limits.")
+
+
+class GateSpec(_Section):
+    """What a re-check holds a new result to, against the pinned baseline."""
+
+    score_tolerance: Annotated[Real, Field(ge=0)] = Field(
+        1e-9, description="Relative drop in per-row score allowed before failing.")
+    max_edge_changes: Count = Field(
+        0, description="Edges added + removed + reversed allowed (equivalence-class level).")
+    allow_new_states: StrictBool = Field(
+        False, description="Whether new or vanished states in the data are accepted.")
+    on: Literal["run", "consensus"] = Field(
+        "run", description="Compare the learned graph, or the bootstrap consensus graph.")
+
+
+class BootstrapSpec(_Section):
+    """Resampled re-learning for edge confidence (Friedman, Goldszmidt & Wyner 1999)."""
+
+    replicates: PositiveCount = Field(description="Number of resampled data sets.")
+    seed: Count = Field(0, description="Seed of the resampling.")
+    threshold: Annotated[Real, Field(gt=0, le=1)] = Field(
+        0.5, description="Share of replicates an edge needs to enter the consensus graph.")
+
+
+class FitSpec(_Section):
+    """Fitting the conditional probability tables of the learned graph."""
+
+    pseudo_count: Annotated[Real, Field(ge=0)] = Field(
+        1.0, description="Dirichlet pseudo-count added to every table cell (default 1.0; "
+        "0 gives maximum-likelihood tables).")
+
+
+class EvaluationSpec(_Section):
+    """Held-out evaluation: a seeded share of rows is kept out of learning and scored."""
+
+    holdout: Annotated[Real, Field(gt=0, lt=1)] = Field(
+        description="Share of rows held out from learning.")
+    seed: Count = Field(0, description="Seed of the hold-out split.")
+
+
+class Spec(_Section):
+    """A dagmill analysis spec: data, constraints, score, search and gate."""
+
+    name: Annotated[StrictStr, Field(pattern=NAME_PATTERN)] = Field(
+        description="Names the results folder: lowercase letters, digits and '-'.")
+    dataset: DatasetSpec = Field(description="Where the data is and how to read it.")
+    tiers: list[Annotated[list[Variable], Field(min_length=1)]] = Field(
+        default_factory=list, description="Ordered groups of variables: edges may go from an "
+        "earlier tier to a later one, never back. A variable in no tier is unconstrained.")
+    tier_names: list[TierName] | None = Field(
+        None, description="Optional short labels of the tiers, one per tier, in order; "
+        "messages and reports show them beside the tier's number.")
+    within_tier: Literal["allowed", "forbidden"] = Field(
+        "allowed", description="Whether edges between two variables of the same tier are "
+        "allowed.")
+    forbidden: list[Pair] = Field(
+        default_factory=list, description="Directed pairs [from, to] that may never be edges.")
+    required: list[Pair] = Field(
+        default_factory=list, description="Directed pairs [from, to] every learned graph "
+        "contains.")
+    parent_cap: Count | None = Field(
+        None, description="Most parents any node may have; null: no cap.")
+    score: ScoreSpec = Field(default_factory=ScoreSpec, description="The score.")
+    search: SearchSpec = Field(default_factory=SearchSpec, description="The search.")
+    gate: GateSpec = Field(default_factory=GateSpec, description="What a re-check enforces.")
+    bootstrap: BootstrapSpec | None = Field(
+        None, description="Bootstrap edge confidence and a consensus graph.")
+    fit: FitSpec | None = Field(None, description="Fitting the conditional probability "
+                                "tables (pseudo_count 1.0 when absent).")
+    evaluation: EvaluationSpec | None = Field(
+        None, description="Held-out evaluation: rows kept out of learning, then scored.")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _default_method(cls, data: Any) -> Any:
+        """A spec that names no search method gets the score's default one."""
+        if not isinstance(data, dict):
+            return data
+        search, score = data.get("search"), data.get("score")
+        if search is not None and (not isinstance(search, dict) or "method" in search):
+            return data
+        name = score.get("name", "bic") if isinstance(score, dict) else "bic"
+        return {**data, "search": {**(search or {}), "method": default_method(str(name))}}
+
+    _source_path: Path | None = PrivateAttr(default=None)
+    _file: str | None = PrivateAttr(default=None)
+    _lines: dict[str, int] = PrivateAttr(default_factory=dict)
+    _warnings: list[Problem] = PrivateAttr(default_factory=list)
+
+    @property
+    def source_path(self) -> Path:
+        """The spec file, absolute. Only specs read by :func:`load_spec` have one."""
+        if self._source_path is None:
+            raise AttributeError("this Spec was not read from a file")
+        return self._source_path
+
+    @property
+    def file(self) -> str:
+        """The spec file as it was named when read (``<spec>`` for one built in memory)."""
+        return self._file or str(self._source_path or "<spec>")
+
+    def attach_source(self, path: Path, file: str, lines: dict[str, int],
+                      warnings: list[Problem]) -> None:
+        """Record where the spec was read from (by :func:`runner.spec.loader.load_spec`)."""
+        self._source_path = path
+        self._file = file
+        self._lines = dict(lines)
+        self._warnings = list(warnings)
+
+    @property
+    def warnings(self) -> list[Problem]:
+        """Warnings found while loading (the spec is usable despite them)."""
+        return list(self._warnings)
+
+    def line_of(self, key_path: str) -> int | None:
+        """1-based line of a dotted key path, else of its nearest parent that has one."""
+        return nearest_line(self._lines, dotted(key_path))
+
+    def dataset_path(self) -> Path:
+        """``dataset.path`` resolved against the spec file's folder (or the current folder)."""
+        base = self._source_path.parent if self._source_path is not None else Path.cwd()
+        return (base / self.dataset.path).resolve()
+
+
+# --------------------------------------------------------------------------- the spec as data
+
+
+def normalised_spec(spec: Spec, seed: int | None = None) -> dict[str, Any]:
+    """The spec as plain JSON data, defaults filled in; ``seed`` overrides ``search.seed``.
+    ``tier_names`` appears only when the spec gives it (older specs keep their hash)."""
+    data = spec.model_dump(mode="json")
+    if data.get("tier_names") is None:
+        data.pop("tier_names", None)
+    if seed is not None:
+        data["search"]["seed"] = seed
+    return _sort_keys(data)
+
+
+def spec_sha256(spec: Spec, seed: int | None = None) -> str:
+    """sha256 (hex) of the canonical JSON of :func:`normalised_spec`."""
+    text = json.dumps(normalised_spec(spec, seed), sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def spec_json_schema() -> dict[str, Any]:
+    """The JSON Schema (draft 2020-12) of a spec file, for editors and other tools."""
+    schema = Spec.model_json_schema()
+    return {
+        "$schema": SCHEMA_DIALECT,
+        **schema,
+        "title": "dagmill spec",
+        "description": "One analysis for dagmill: the data file, constraints on the graph, "
+        "the score, the search and the re-check gate. Paths are relative to the spec file.",
+    }
+
+
+def tier_label(index: int, names: list[str] | None = None) -> str:
+    """A tier as messages show it: numbered from 1, with its name when the spec gives
+    tier names (``tier 2 ("firing")``); ``index`` counts from 0."""
+    label = f"tier {index + 1}"
+    if names is not None and 0 <= index < len(names):
+        label += f' ("{names[index]}")'
+    return label
+
+
+def dotted(key_path: str) -> str:
+    """Accept ``tiers[1][0]`` as well as ``tiers.1.0``."""
+    return re.sub(r"\[(\d+)\]", r".\1", key_path).strip(".")
+
+
+def nearest_line(lines: dict[str, int], key: str) -> int | None:
+    """The line of a dotted key path, else of its nearest parent that has one."""
+    parts = key.split(".") if key else []
+    while parts:
+        line = lines.get(".".join(parts))
+        if line is not None:
+            return line
+        parts.pop()
+    return None
+
+
+def _sort_keys(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {k: _sort_keys(value[k]) for k in sorted(value)}
+    if isinstance(value, list):
+        return [_sort_keys(v) for v in value]
+    return value
