@@ -114,7 +114,6 @@ def _check_runs(audit: SpecAudit, folders: list[Path],
                 key: Ed25519PublicKey | None) -> list[tuple[Path, dict[str, Any]]]:
     """Each run on its own; returns the readable records (parsed, by folder order)."""
     readable: list[tuple[Path, dict[str, Any]]] = []
-    seen_sealed = False
     for folder in folders:
         path = folder / "run.json"
         if not RUN_ID.match(folder.name):
@@ -135,12 +134,7 @@ def _check_runs(audit: SpecAudit, folders: list[Path],
                                           "or swapped"))
         version = format_version(doc)
         if version >= 2:
-            seen_sealed = True
             audit.sealed += 1
-        elif seen_sealed:
-            audit.problems.append(Finding(str(path), f"format version {version} (unchained) "
-                                          "stored after chained runs: its seal or chain was "
-                                          "stripped"))
         if SIGNATURE_KEY in doc:
             audit.signed += 1
         if key is not None and version >= 2:
@@ -149,7 +143,23 @@ def _check_runs(audit: SpecAudit, folders: list[Path],
                 audit.problems.append(Finding(str(path), f"signature: {why}"))
         _check_outcome_file(audit, folder, key)
         readable.append((folder, doc))
+    _check_unchained(audit, readable)
     return readable
+
+
+def _check_unchained(audit: SpecAudit, records: list[tuple[Path, dict[str, Any]]]) -> None:
+    """An unchained record (format 0 or 1) from the time chained ones were written, or
+    later, had its seal or chain stripped: older formats were written before the chain."""
+    chained = [_stamp(doc) for _, doc in records if format_version(doc) >= 2]
+    if not chained:
+        return
+    first = min(chained)
+    for folder, doc in records:
+        version = format_version(doc)
+        if version < 2 and _stamp(doc) >= first:
+            audit.problems.append(Finding(str(folder / "run.json"), f"format version "
+                                          f"{version} (unchained) stored when runs were "
+                                          "already chained: its seal or chain was stripped"))
 
 
 def _check_outcome_file(audit: SpecAudit, folder: Path, key: Ed25519PublicKey | None) -> None:

@@ -245,26 +245,3 @@ def replicates(record: Mapping[str, Any]) -> int | None:
     if isinstance(block, Mapping) and isinstance(block.get("replicates"), int):
         return int(block["replicates"])
     return None
-
-
-def confidence_lines(record: Mapping[str, Any]) -> list[str]:
-    """``show``: the run's edges and the consensus edges with their shares."""
-    block = record.get("bootstrap")
-    if not block:
-        return []
-    shares = {s: edge_confidence(record, s) for s in SHARES}
-
-    def line(a: str, b: str) -> str:
-        return f"  {a} -> {b}".ljust(36) + "  ".join(
-            f"{s} {shares[s].get((a, b), 0.0):.3f}" for s in SHARES)
-
-    out = [f"bootstrap  {block['replicates']} replicates  seed {block['seed']}  threshold "
-           f"{block['threshold']:g}  not converged {block['not_converged']}",
-           "run edges with their confidence"]
-    out += [line(a, b) for a, b in record["edges"]]
-    cons = block["consensus"]
-    out.append(f"consensus  {len(cons['edges'])} edges  graph hash {cons['graph_sha256']}")
-    out += [line(a, b) for a, b in cons["edges"]]
-    out += [f"  skipped {s['pair'][0]} - {s['pair'][1]} (adjacent {s['adjacent']:.3f}): "
-            f"{s['reason']}" for s in cons["skipped"]]
-    return out

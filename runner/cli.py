@@ -26,8 +26,15 @@ from runner.engines import ENGINE_ENV, choose_engine, open_engine
 from runner.environment import environment_changes, environment_sentence
 from runner.errors import EnvironmentFault, InputError, Problem
 from runner.export import FORMATS, export
-from runner.format import render_table, summary_lines
 from runner.pipeline import RunResult, run_spec, validate
+from runner.present.text import (
+    baseline_changes,
+    check_table,
+    compare_lines,
+    history_table,
+    run_table,
+    summary_lines,
+)
 from runner.progress import Reporter
 from runner.record import baseline_json_schema, record_json_schema
 from runner.spec import load_spec, spec_json_schema
@@ -200,7 +207,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
     root = results_root(args.results)
     if args.data is not None and len(args.specs) > 1:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
-    rows, out, mismatch = [], [], []
+    out, mismatch, shown = [], [], []
     choice = choose_engine(args.engine, args.workers)
     if choice.capped:
         print(choice.capped, file=sys.stderr)
@@ -219,15 +226,11 @@ def _cmd_run(args: argparse.Namespace) -> int:
         out.append({"run_id": result.run_id, "folder": str(result.folder),
                     "score": rec["score"]["value"], "edges": len(rec["edges"]),
                     "graph_sha256": rec["graph_sha256"], "twin": twin})
-        twin_text = "-" if twin is None else (
-            f"{twin['run_id']} identical" if twin["identical"] else f"{twin['run_id']} DIFFERS")
-        rows.append([rec["spec_name"], result.run_id, rec["score"]["name"],
-                     f"{rec['score']['value']:.4f}", str(len(rec["edges"])),
-                     rec["search"]["stop_reason"], twin_text])
+        shown.append({"run_id": result.run_id, "record": rec, "twin": twin})
     if args.json:
         print(json.dumps({"runs": out}, indent=2, sort_keys=True))
     else:
-        print(render_table(["spec", "run", "score", "value", "edges", "stop", "twin"], rows))
+        print(run_table(shown))
         for item in out:
             print(f"stored: {item['folder']}")
             print(f"report: dagmill report {item['run_id']} --results {root}")
@@ -283,7 +286,7 @@ def _cmd_compare(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps(result, indent=2, sort_keys=True))
     else:
-        print("\n".join(compare.compare_lines(result)))
+        print("\n".join(compare_lines(result)))
     return 0
 
 
@@ -293,7 +296,7 @@ def _cmd_pin(args: argparse.Namespace) -> int:
     record = read_run(folder)
     stamp = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     new, old, path = write_baseline(root, record, stamp)
-    changes = compare.baseline_changes(old, new)
+    changes = baseline_changes(old, new)
     if args.json:
         print(json.dumps({"baseline": str(path), "run_id": new["run_id"],
                           "replaced": None if old is None else old["run_id"],
@@ -333,7 +336,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
         report["folder"] = str(result.folder)
         seconds[record["spec_name"]] = record["seconds"]["total"]
         reports.append(report)
-        texts.append(compare.check_table(report))
+        texts.append(check_table(report))
     ok = all(r["ok"] for r in reports)
     if args.junit:
         atomic_write_text(Path(args.junit), compare.junit_xml(reports, seconds))
@@ -372,14 +375,7 @@ def _cmd_history(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps({"spec": name, "runs": rows}, indent=2, sort_keys=True))
         return 0
-    table = [["*" if r["baseline"] else "", r.get("time") or "-", r["run_id"],
-              "REFUSED" if r["refused"] else r["data_sha256"],
-              "" if r["refused"] else str(r["rows"]), r.get("code_version", ""),
-              "" if r["refused"] else f"{r['score']} {r['per_row']:.6f}",
-              "" if r["refused"] else str(r["edges"]),
-              "-" if r.get("shd_previous") is None else str(r["shd_previous"])] for r in rows]
-    print(render_table(["base", "time", "run", "data", "rows", "code", "score/row", "edges",
-                        "shd prev"], table))
+    print(history_table(rows))
     if baseline is None:
         print(f"no baseline; pin one with: dagmill pin RUN --results {root}")
     return 0

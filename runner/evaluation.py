@@ -140,27 +140,6 @@ def measure_name(ev: Mapping[str, Any]) -> str:
     return "log density" if "measure" in ev else "log-likelihood"
 
 
-def held_out_lines(record: Mapping[str, Any]) -> list[str]:
-    """The ``show`` lines of a run's held-out fit (none without one)."""
-    ev = held_out_summary(record)
-    if ev is None:
-        return []
-    ll, unseen = ev["log_likelihood"], ev["unseen"]
-    lines = [
-        f"held out   {ev['rows_held_out']} rows (holdout {ev['holdout']:g}, seed {ev['seed']}); "
-        f"learned on {ev['rows_learned']}",
-        f"  {measure_name(ev)} per held-out row: learned {ll['learned_per_row']:.6f}  "
-        f"empty graph {ll['empty_per_row']:.6f}  difference "
-        f"{ll['difference_per_row']:+.6f}",
-    ]
-    if "measure" in ev:  # a density: no unseen cells
-        return lines
-    return [*lines,
-        f"  unseen in learning: {unseen['configurations']} parent configurations, "
-        f"{unseen['states']} states (cells of held-out rows; from the pseudo-count)",
-    ]
-
-
 def held_out_comparison(a: Mapping[str, Any], b: Mapping[str, Any]) -> dict[str, Any] | None:
     """Held-out log-likelihood per row of both runs and B - A, when both have one;
     ``same_rows`` says whether they held out the same rows of the same data."""
@@ -171,12 +150,3 @@ def held_out_comparison(a: Mapping[str, Any], b: Mapping[str, Any]) -> dict[str,
     same = (a["data"]["sha256"] == b["data"]["sha256"]
             and (ea["holdout"], ea["seed"]) == (eb["holdout"], eb["seed"]))
     return {"a_per_row": la, "b_per_row": lb, "delta_per_row": lb - la, "same_rows": same}
-
-
-def held_out_comparison_lines(result: Mapping[str, Any]) -> list[str]:
-    held = result.get("held_out")
-    if not held:
-        return []
-    note = "" if held["same_rows"] else "  (different held-out rows: not comparable)"
-    return [f"held out   log-likelihood per row A {held['a_per_row']:.6f}  B "
-            f"{held['b_per_row']:.6f}  delta {held['delta_per_row']:+.6f}{note}"]

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import hashlib
 import time
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
@@ -25,7 +26,7 @@ from runner.errors import InputError, Problem
 from runner.evaluation import SPLIT_RULE, gaussian_held_out_fit, held_out_fit, split_rows
 from runner.fit import DEFAULT_PSEUDO_COUNT, fit_model
 from runner.graph import edges_from_parents, graph_sha256
-from runner.kinds import is_gaussian, make_scorer, resolve_columns, score_record
+from runner.kinds import Resolved, is_gaussian, make_scorer, resolve_columns, score_record
 from runner.progress import SILENT, Progress, Reporter
 from runner.registry import RestartParams
 from runner.scores import FamilyScorer
@@ -91,8 +92,7 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
     else:
         path, display, pin = spec.dataset_path(), ds.path, ds.sha256
     try:
-        dataset = load_dataset(path, expected_sha256=pin, display_path=display,
-                               **loader_settings(normalised_spec(spec)["dataset"]))
+        dataset = read_data(normalised_spec(spec), path, display, expected_sha256=pin)
     except InputError as exc:
         raise InputError(problems + exc.problems) from None
     warnings.extend(dataset.warnings)
@@ -107,10 +107,9 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
     stored, stored_from = (baseline_bins(bins_from, spec.name) if bins_from and binned
                            else ({}, ""))
     try:
-        resolved = resolve_columns(
-            dataset, normal["dataset"]["columns"], normal["score"], spec_file=str(spec_path),
-            data_file=display, line_of=spec.line_of, stored_bins=stored,
-            stored_from=stored_from)
+        resolved = resolve_data(normal, dataset, spec_file=str(spec_path), data_file=display,
+                                line_of=spec.line_of, stored_bins=stored,
+                                stored_from=stored_from)
     except InputError as exc:
         raise InputError(problems + exc.problems) from None
     if problems:
@@ -123,6 +122,115 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
     )
     return Prepared(spec, dataset, constraints, display, str(spec_path), warnings,
                     resolved.columns, resolved.bins_fingerprint)
+
+
+# --------------------------------------------------------------------------- preparation
+# One path from a normalised spec (the spec as plain data, as a record stores it) to a
+# scorer: read the data, resolve the column kinds (bins), take the learning rows, bind the
+# score. ``prepare``/``learn`` and :func:`prepare_stored` (rescoring a stored graph) both
+# go through it, so a rescore and a run build identical scorers for identical inputs.
+
+
+def read_data(normal: Mapping[str, Any], path: Path, display: str,
+              expected_sha256: str | None = None) -> Dataset:
+    """The data file read as the normalised spec's ``dataset`` block says (missing-value
+    rule, declared states, state limit); raises InputError naming the file."""
+    return load_dataset(path, expected_sha256=expected_sha256, display_path=display,
+                        **loader_settings(normal["dataset"]))
+
+
+def resolve_data(normal: Mapping[str, Any], dataset: Dataset, *, spec_file: str,
+                 data_file: str, line_of: Callable[[str], int | None] = lambda key: None,
+                 stored_bins: Mapping[str, Mapping[str, Any]] | None = None,
+                 stored_from: str = "") -> Resolved:
+    """The columns' kinds checked against the normalised spec's score, continuous columns
+    cut into bins (at ``stored_bins`` when they fit the spec's settings)."""
+    return resolve_columns(dataset, normal["dataset"].get("columns") or {}, normal["score"],
+                           spec_file=spec_file, data_file=data_file, line_of=line_of,
+                           stored_bins=stored_bins, stored_from=stored_from)
+
+
+def learning_rows(normal: Mapping[str, Any], dataset: Dataset) -> tuple[Dataset, Dataset | None]:
+    """The rows the score is computed on and the held-out rows: the normalised spec's
+    ``evaluation`` split (:func:`runner.evaluation.split_rows`), or all rows and None."""
+    evaluation = normal.get("evaluation")
+    if not evaluation:
+        return dataset, None
+    learn_rows, held_rows = split_rows(dataset.rows, evaluation["holdout"], evaluation["seed"])
+    return dataset.take_rows(learn_rows), dataset.take_rows(held_rows)
+
+
+def spec_scorer(normal: Mapping[str, Any], dataset: Dataset) -> FamilyScorer:
+    """The normalised spec's score bound to a resolved data set (its learning rows)."""
+    return make_scorer(normal["score"], dataset)
+
+
+@dataclass(frozen=True)
+class StoredInputs:
+    """A stored run's data prepared again the way its run prepared it."""
+
+    normal: dict[str, Any]  # the record's normalised spec (score block as asked)
+    dataset: Dataset  # resolved, all rows
+    learning: Dataset  # the rows the run's score was computed on
+    path: Path
+    data_sha256: str
+
+    def scorer(self) -> FamilyScorer:
+        """The scorer a run of ``normal`` builds on these rows."""
+        return spec_scorer(self.normal, self.learning)
+
+
+def record_data_file(record: Mapping[str, Any]) -> Path:
+    """Where a record's data file is: ``data.path`` is relative to the spec file when it
+    is the spec's own ``dataset.path``, else (``--data``) to the folder the run was
+    started in."""
+    path = Path(record["data"]["path"])
+    if path.is_absolute():
+        return path
+    spec_path = record.get("spec_path")
+    spec_data = ((record.get("spec") or {}).get("dataset") or {}).get("path")
+    if spec_path and spec_data == record["data"]["path"]:
+        return Path(spec_path).parent / path
+    return path
+
+
+def prepare_stored(record: Mapping[str, Any], data_path: str | Path | None = None,
+                   score: Mapping[str, Any] | None = None) -> StoredInputs:
+    """A stored run's data and learning rows, prepared by the pipeline's own steps from
+    the record's normalised spec (``score`` replaces its score block).
+
+    The data is the record's file, which must still hash to the record's data sha256,
+    unless ``data_path`` names a file explicitly; continuous columns are cut at the
+    record's own bin edges; a run with a held-out share keeps its learning rows (the
+    same seeded split, taken from the record's ``evaluation`` block). Raises InputError
+    when the file changed or lacks the graph's variables.
+    """
+    explicit = data_path is not None
+    path = Path(data_path) if data_path is not None else record_data_file(record)
+    spec = dict(record.get("spec") or {})
+    normal: dict[str, Any] = {**spec, "dataset": dict(spec.get("dataset") or {}),
+                              "score": dict(score if score is not None
+                                            else spec.get("score") or {})}
+    held = record.get("evaluation")
+    if isinstance(held, Mapping) and "holdout" in held:
+        normal["evaluation"] = {"holdout": held["holdout"], "seed": held["seed"]}
+    dataset = read_data(normal, path, str(path))
+    if not explicit and dataset.sha256 != record["data"]["sha256"]:
+        raise InputError(Problem(str(path), (
+            f"the data file's sha256 is {dataset.sha256}, but run {record['run_id']} was "
+            f"learned on {record['data']['sha256']}; name the file with --data to rescore on "
+            "it anyway"), key="data.sha256"))
+    unknown = sorted({v for e in record["edges"] for v in e} - set(dataset.names))
+    if unknown:
+        raise InputError(Problem(str(path), "the data lacks the graph's variables "
+                                 + ", ".join(map(repr, unknown)), key="columns"))
+    stored = {n: c["binning"] for n, c in record["data"]["columns"].items()
+              if isinstance(c.get("binning"), dict)}
+    resolved = resolve_data(normal, dataset, spec_file=str(record.get("spec_path") or "<record>"),
+                            data_file=str(path), stored_bins=stored,
+                            stored_from=f"run {record['run_id']}")
+    learning, _ = learning_rows(normal, resolved.dataset)
+    return StoredInputs(normal, resolved.dataset, learning, path, dataset.sha256)
 
 
 def validate(spec_path: str | Path) -> tuple[list[Problem], list[Problem]]:
@@ -247,7 +355,7 @@ def search_on(prepared: Prepared, dataset: Dataset,
     """The spec's score and search on ``dataset`` (the prepared columns, other rows: a
     bootstrap replicate); the learned parent sets and whether the search converged."""
     spec = prepared.spec
-    scorer = make_scorer(normalised_spec(spec)["score"], dataset)
+    scorer = spec_scorer(normalised_spec(spec), dataset)
     outcome, *_ = run_search(prepared, scorer, spec_budget(spec), rng)
     return [tuple(ps) for ps in outcome.parent_sets], outcome.converged
 
@@ -279,13 +387,10 @@ def learn_bootstrap(prepared: Prepared, engine: Engine | None = None,
 def split_learning_rows(prepared: Prepared) -> tuple[Prepared, Dataset | None]:
     """The prepared spec on its learning rows and the held-out rows: all rows and None
     without an ``evaluation`` section."""
-    evaluation = prepared.spec.evaluation
-    if evaluation is None:
+    learning, held = learning_rows(normalised_spec(prepared.spec), prepared.dataset)
+    if held is None:
         return prepared, None
-    learn_rows, held_rows = split_rows(prepared.dataset.rows, evaluation.holdout,
-                                       evaluation.seed)
-    return (replace(prepared, dataset=prepared.dataset.take_rows(learn_rows)),
-            prepared.dataset.take_rows(held_rows))
+    return replace(prepared, dataset=learning), held
 
 
 def learning_part(prepared: Prepared) -> Prepared:
@@ -330,7 +435,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
 
     score_spec = normalised_spec(spec)["score"]
     part, held = split_learning_rows(prepared)
-    scorer = make_scorer(score_spec, part.dataset)
+    scorer = spec_scorer(normalised_spec(spec), part.dataset)
     statistics = scorer.statistics if isinstance(scorer, GaussianScorer) else None
     b = spec.search.budget
     budget = spec_budget(spec)

@@ -460,3 +460,38 @@ def demo_spec_with_holdout(folder: Path, extra: str = "", holdout: float = 0.2,
     path = folder / "kiln-line.yaml"
     path.write_text(text + extra, encoding="utf-8")
     return path
+
+
+# --------------------------------------------------------------------------- results and gates
+
+#: The strictest gate: no score drop, no class edge change, no new or vanished state.
+GATE = {"score_tolerance": 1e-9, "max_edge_changes": 0, "allow_new_states": False}
+
+
+@pytest.fixture
+def dagmill(cli: CliCall) -> CliCall:
+    """``dagmill(*args, cwd=folder)``: ``cli`` with ``--results results``; a traceback on
+    stderr fails the test."""
+
+    def call(*args: str, cwd: Path) -> CliResult:
+        done = cli(*args, "--results", "results", cwd=cwd)
+        assert "Traceback" not in done.stderr
+        return done
+
+    return call
+
+
+def write_numeric_case(folder: Path, rows: int = 600, seed: int = 9,
+                       names: Sequence[str] = ("a", "b", "c", "d")) -> Path:
+    """Four continuous columns from a linear-Gaussian chain a -> b -> c, a -> d (numpy,
+    seeded), written to ``folder/data.csv`` with six decimals; returns the file."""
+    rng = np.random.default_rng(seed)
+    a = rng.normal(0, 1, rows)
+    b = 0.9 * a + rng.normal(0, 1, rows)
+    c = -0.7 * b + rng.normal(0, 0.8, rows)
+    d = 1.1 * a + rng.normal(0, 1, rows)
+    lines = [",".join(names)] + [",".join(f"{v:.6f}" for v in row)
+                                 for row in np.vstack([a, b, c, d]).T]
+    path = folder / "data.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return path

@@ -24,6 +24,7 @@ from cryptography.hazmat.primitives import serialization
 from cryptography.hazmat.primitives.asymmetric import ed25519
 
 from runner.errors import InputError
+from runner.present.text import baseline_changes
 from runner.store import (
     baseline_path,
     baseline_sha256,
@@ -155,7 +156,7 @@ def test_a_stripped_seal_is_caught_by_the_reader_and_by_verify(copy: Path,
                                        ("format_version", "previous_record_sha256")])
     done, report = verify(cli, copy)
     assert done.returncode == 1
-    assert any("stored after chained runs" in p["problem"] and last.name in p["file"]
+    assert any("runs were already chained" in p["problem"] and last.name in p["file"]
                for p in problems(report))
 
 
@@ -225,6 +226,8 @@ def test_pinning_replaces_the_baseline_and_reports_the_change(copy: Path) -> Non
     assert replaced == old and read_baseline(results, "kiln-line") == new
     assert new["run_id"] == second["run_id"] != first["run_id"]
     assert new["record_sha256"] == second["record_sha256"]
+    lines = baseline_changes(old, new)
+    assert lines[0] == f"replaces baseline {first['run_id']}"
     assert path.read_text().endswith("}\n") and not list(path.parent.glob(".*tmp"))
 
 

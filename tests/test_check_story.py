@@ -23,16 +23,6 @@ REPO = Path(__file__).resolve().parents[1]
 DROP_SEED = 7
 
 
-@pytest.fixture
-def dagmill(cli: CliCall) -> CliCall:
-    """``cli`` with ``--results results``."""
-
-    def call(*args: str, cwd: Path) -> CliResult:
-        return cli(*args, "--results", "results", cwd=cwd)
-
-    return call
-
-
 def no_traceback(done: CliResult) -> None:
     assert "Traceback" not in done.stderr and "Traceback" not in done.stdout
 

@@ -1,4 +1,4 @@
-"""compare.py's pure functions (hand-worked examples and properties), baselines in the
+"""runner.compare's pure functions (hand-worked examples and properties), baselines in the
 store, rescoring, and the bad-input paths of compare/pin/history on the command line."""
 
 from __future__ import annotations
@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 import pytest
-from conftest import CliCall, CliResult, random_dag
+from conftest import GATE, CliCall, random_dag, write_numeric_case
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -19,6 +19,7 @@ from runner import compare
 from runner.errors import InputError
 from runner.graph import graph_sha256
 from runner.pipeline import run_spec
+from runner.store import read_run
 
 REPO = Path(__file__).resolve().parents[1]
 COLUMNS = {n: {"kind": "discrete", "states": ["0", "1"]} for n in "abcd"}
@@ -43,9 +44,6 @@ def baseline(rec: dict[str, Any]) -> dict[str, Any]:
     from runner.store import baseline_from_record
 
     return baseline_from_record(rec, "2026-12-01T00:00:00Z")
-
-
-GATE = {"score_tolerance": 1e-9, "max_edge_changes": 0, "allow_new_states": False}
 
 
 # --------------------------------------------------------------------------- hand-worked
@@ -147,6 +145,37 @@ def test_gate_state_changes_fail_unless_allowed() -> None:
     assert allowed["ok"] and "allowed by gate.allow_new_states" in allowed["notes"][0]
 
 
+def test_gate_reports_each_rule_with_its_numbers_and_threshold() -> None:
+    base = baseline(record([["a", "b"]], per_row=-2.0))
+    new = record([["a", "b"], ["c", "d"]], per_row=-2.5, inputs="n" * 64)
+    report = compare.evaluate_gate(base, new, {**GATE, "max_edge_changes": 2})
+    rules = {r["rule"]: r for r in report["rules"]}
+    assert [r["rule"] for r in report["rules"]] == [rule.name for rule in compare.RULES]
+    assert rules["consensus"]["status"] == rules["reproduce"]["status"] == "skipped"
+    # -2.0 -> -2.5 per row is a relative drop of 0.25 (score_tolerance 1e-9): fails.
+    assert rules["score"] == {"rule": "score", "status": "fail", "baseline": -2.0,
+                              "new": -2.5, "measure": -0.25, "threshold": 1e-9}
+    # One class edge added, two allowed: passes.
+    assert rules["class-edges"]["status"] == "pass"
+    assert (rules["class-edges"]["measure"], rules["class-edges"]["threshold"]) == (1, 2)
+    assert report["failures"] == [
+        "score per row dropped 2.500e-01 (relative), more than score_tolerance 1e-09: "
+        "-2.000000 -> -2.500000"]
+
+
+def test_gate_takes_extra_rules() -> None:
+    # The gate is its list of rules: a rule appended is applied and reported like the rest.
+    def never(ctx: compare.GateContext) -> compare.RuleResult:
+        return compare.RuleResult("", "fail", 1, 2, 3, 0, failures=("never passes",))
+
+    base = baseline(record([["a", "b"]]))
+    rules = (*compare.RULES, compare.Rule("never", never))
+    report = compare.evaluate_gate(base, record([["a", "b"]]), GATE, rules=rules)
+    assert not report["ok"] and report["failures"] == ["never passes"]
+    assert report["rules"][-1] == {"rule": "never", "status": "fail", "baseline": 1, "new": 2,
+                                   "measure": 3, "threshold": 0}
+
+
 @st.composite
 def dag_pairs(draw: st.DrawFn) -> tuple[list[list[str]], list[list[str]]]:
     n = draw(st.integers(2, 7))
@@ -218,11 +247,9 @@ def _runs(demo: Path) -> list[Path]:
 
 def test_rescore_reproduces_the_stored_score_and_refuses_changed_data(demo: Path,
                                                                       tmp_path: Path) -> None:
-    from runner.store import read_run
-
     rec = read_run(next(p for p in _runs(demo) if "kiln-line" in str(p)))
     same = compare.rescore(rec, "bic")
-    assert same["value"] == pytest.approx(rec["score"]["value"], rel=1e-12)
+    assert same["value"] == rec["score"]["value"]
     changed = tmp_path / "kiln-line.csv"
     changed.write_bytes((demo / "datasets" / "kiln-line.csv").read_bytes() + b"")
     moved = {**rec, "data": {**rec["data"], "sha256": "0" * 64}}
@@ -232,19 +259,38 @@ def test_rescore_reproduces_the_stored_score_and_refuses_changed_data(demo: Path
     assert explicit["data_sha256"] == rec["data"]["sha256"] and explicit["score"] == "k2"
 
 
+#: Specs on the numeric case of ``write_numeric_case``: a discrete score with every column
+#: cut into bins (the record's own edges are reused by a rescore), a BDeu ess and a
+#: held-out share; and a Gaussian score with a BGe prior of its own and a held-out share.
+STORED_SPECS = {
+    "discrete": "score: {name: bdeu, ess: 5.0}\ndataset:\n  path: data.csv\n  columns:\n"
+                + "".join(f"    {n}: {{kind: continuous, bins: 3, binning: quantile}}\n"
+                          for n in "abcd"),
+    "gaussian": "score: {name: bge, alpha_mu: 4.0, prior_scale: 2.0}\n"
+                "dataset: {path: data.csv}\n",
+}
+
+
+@pytest.mark.parametrize("kind", sorted(STORED_SPECS))
+def test_rescoring_a_run_under_its_own_score_gives_its_stored_score_exactly(
+        tmp_path: Path, kind: str) -> None:
+    # A rescore prepares the data through the pipeline's own steps (reader, column kinds
+    # and bins, learning rows, scorer): under the run's own score it must give back the
+    # stored score bit for bit, not just nearly.
+    write_numeric_case(tmp_path)
+    spec = tmp_path / "spec.yaml"
+    spec.write_text(f"name: stored-{kind}\n" + STORED_SPECS[kind]
+                    + "tiers: [[a], [b, d], [c]]\nfit: {pseudo_count: 1.0}\n"
+                    "evaluation: {holdout: 0.25, seed: 3}\n", encoding="utf-8")
+    rec = read_run(run_spec(spec, tmp_path / "results").folder)
+    assert rec["edges"], "the case should learn some edges"
+    again = compare.rescore(rec, rec["score"]["name"])
+    assert again["value"] == rec["score"]["value"]
+    assert again["rows"] == rec["data"]["rows_learned"]
+    assert again["data_sha256"] == rec["data"]["sha256"]
+
+
 # --------------------------------------------------------------------------- command line
-
-
-@pytest.fixture
-def dagmill(cli: CliCall) -> CliCall:
-    """``cli`` with ``--results results``."""
-
-    def call(*args: str, cwd: Path) -> CliResult:
-        done = cli(*args, "--results", "results", cwd=cwd)
-        assert "Traceback" not in done.stderr
-        return done
-
-    return call
 
 
 def test_compare_two_specs_warns_and_rescores(demo: Path, dagmill: CliCall) -> None:

@@ -8,13 +8,11 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from conftest import BOOT, CliCall, write_case
+from conftest import BOOT, GATE, CliCall, write_case
 
 from runner.compare import compare_records, evaluate_gate
 from runner.graph import graph_sha256
 from runner.store import baseline_from_record
-
-GATE = {"score_tolerance": 1e-9, "max_edge_changes": 0, "allow_new_states": False}
 
 
 def _record(edges: list[list[str]], consensus: list[list[str]] | None,

@@ -325,7 +325,7 @@ def difference_lines(found: Sequence[tuple[str, str, str, str]]) -> list[str]:
 def matrix_lines(base: Outcome, others: Sequence[Outcome | Variant]) -> list[str]:
     """The matrix: one row per variant, per artifact the number of specs whose file is
     identical to the baseline's, the kernel the records name, and the seconds taken."""
-    from runner.format import render_table
+    from runner.present.text import render_table
 
     total = len(base.files)
     rows = [[base.variant.name, *(f"{total}/{total}" for _ in ARTIFACTS),

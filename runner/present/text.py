@@ -1,0 +1,326 @@
+"""Text for the terminal: every table and line the command prints.
+
+Renders records and the results computed elsewhere (:mod:`runner.compare`,
+:mod:`runner.bootstrap`, :mod:`runner.evaluation`); nothing here computes a result.
+Columns are as wide as their content, so long variable names never run into the next
+column.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+from runner.bootstrap import SHARES, edge_confidence
+from runner.compare import (
+    column_changes,
+    describe_columns,
+    describe_edges,
+    field_at,
+    graph_diff,
+    score_delta,
+)
+from runner.environment import environment_sentence
+from runner.evaluation import held_out_summary, measure_name
+
+#: Space between two columns of a table or a list.
+GAP = "  "
+
+
+def render_table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
+    """A compact left-aligned text table with a rule under the header."""
+    widths = [len(h) for h in header]
+    for row in rows:
+        widths = [max(w, len(str(c))) for w, c in zip(widths, row, strict=True)]
+    lines = [GAP.join(str(c).ljust(w) for c, w in zip(header, widths, strict=True)).rstrip(),
+             GAP.join("-" * w for w in widths)]
+    lines += [GAP.join(str(c).ljust(w) for c, w in zip(row, widths, strict=True)).rstrip()
+              for row in rows]
+    return "\n".join(lines)
+
+
+def aligned(rows: Sequence[Sequence[str]], indent: str = "  ") -> list[str]:
+    """Rows of cells as lines, each column as wide as its widest cell (no header)."""
+    if not rows:
+        return []
+    widths = [max(len(str(row[k])) for row in rows) for k in range(len(rows[0]))]
+    return [(indent + GAP.join(str(c).ljust(w) for c, w in zip(row, widths, strict=True)))
+            .rstrip() for row in rows]
+
+
+# --------------------------------------------------------------------------- show
+
+
+def continuous_lines(columns: Mapping[str, Any]) -> list[str]:
+    """The continuous columns of a record: how each was used (bins and their source)."""
+    rows = []
+    for name in sorted(n for n, c in columns.items() if c.get("kind") == "continuous"):
+        binning = columns[name].get("binning")
+        if binning is None:
+            rows.append([name, f"continuous ({columns[name].get('kind_reason', '?')})"])
+            continue
+        outside = binning.get("below_range", 0) + binning.get("above_range", 0)
+        rows.append([name, f"{len(columns[name]['states'])} {binning['method']} bins, "
+                     f"edges {binning['source']}"
+                     + (f", {outside} value(s) outside their range" if outside else "")])
+    return ["continuous columns", *aligned(rows)] if rows else []
+
+
+def held_out_lines(record: Mapping[str, Any]) -> list[str]:
+    """The ``show`` lines of a run's held-out fit (none without one)."""
+    ev = held_out_summary(record)
+    if ev is None:
+        return []
+    ll, unseen = ev["log_likelihood"], ev["unseen"]
+    lines = [
+        f"held out   {ev['rows_held_out']} rows (holdout {ev['holdout']:g}, seed {ev['seed']}); "
+        f"learned on {ev['rows_learned']}",
+        f"  {measure_name(ev)} per held-out row: learned {ll['learned_per_row']:.6f}  "
+        f"empty graph {ll['empty_per_row']:.6f}  difference "
+        f"{ll['difference_per_row']:+.6f}",
+    ]
+    if "measure" in ev:  # a density: no unseen cells
+        return lines
+    return [*lines,
+            f"  unseen in learning: {unseen['configurations']} parent configurations, "
+            f"{unseen['states']} states (cells of held-out rows; from the pseudo-count)"]
+
+
+def confidence_lines(record: Mapping[str, Any]) -> list[str]:
+    """``show``: the run's edges and the consensus edges with their bootstrap shares, the
+    edge column as wide as the longest edge of both lists."""
+    block = record.get("bootstrap")
+    if not block:
+        return []
+    shares = {s: edge_confidence(record, s) for s in SHARES}
+    cons = block["consensus"]
+    run_edges = [(str(a), str(b)) for a, b in record["edges"]]
+    cons_edges = [(str(a), str(b)) for a, b in cons["edges"]]
+    width = max((len(f"{a} -> {b}") for a, b in run_edges + cons_edges), default=0)
+
+    def line(a: str, b: str) -> str:
+        return f"  {f'{a} -> {b}':<{width}}{GAP}" + GAP.join(
+            f"{s} {shares[s].get((a, b), 0.0):.3f}" for s in SHARES)
+
+    out = [f"bootstrap  {block['replicates']} replicates  seed {block['seed']}  threshold "
+           f"{block['threshold']:g}  not converged {block['not_converged']}",
+           "run edges with their confidence"]
+    out += [line(a, b) for a, b in run_edges]
+    out.append(f"consensus  {len(cons['edges'])} edges  graph hash {cons['graph_sha256']}")
+    out += [line(a, b) for a, b in cons_edges]
+    out += [f"  skipped {s['pair'][0]} - {s['pair'][1]} (adjacent {s['adjacent']:.3f}): "
+            f"{s['reason']}" for s in cons["skipped"]]
+    return out
+
+
+def summary_lines(record: Mapping[str, Any], folder: Path | None = None) -> list[str]:
+    """A run's summary (``show``): inputs and hashes, score, search, edges, timings, the
+    caution."""
+    data, score, search = record["data"], record["score"], record["search"]
+    lines = [
+        f"run        {record['run_id']}",
+        f"spec       {record['spec_name']}  ({record.get('spec_path', '?')})",
+        f"spec hash  {record['spec_sha256']}",
+        f"data       {data['path']}  rows {data['rows']}  columns {len(data['columns'])}"
+        + (f"  dropped {data['dropped_rows']}" if data.get("dropped_rows") else ""),
+        f"data hash  {data['sha256']}",
+        f"input hash {record['input_sha256']}",
+        f"code       {record['code_version']}",
+        f"score      {score['name']} = {score['value']:.6f}  ({score['per_row']:.6f} per row)",
+        f"search     {search['method']}  seed {search['seed']}  stop {search['stop_reason']}"
+        f"  steps {search['steps']}  evaluations {search['evaluations']}"
+        f"  cache hits {search.get('cache_hits', 0)}",
+        f"seconds    search {record['seconds']['search']:.3f}  "
+        f"total {record['seconds']['total']:.3f}",
+        f"graph hash {record['graph_sha256']}",
+    ]
+    if search.get("phases"):
+        lines.append("phases     " + ", ".join(f"{p['phase']} {p['steps']}"
+                                               for p in search["phases"]))
+    if folder is not None:
+        lines.append(f"folder     {folder}")
+    lines += continuous_lines(data.get("columns", {}))
+    edges = record["edges"]
+    lines.append(f"edges      {len(edges)}")
+    families = score.get("families", {})
+    lines += [f"  {a} -> {b}" for a, b in edges]
+    if families:
+        lines.append("families (lowest first)")
+        worst = sorted(families.items(), key=lambda kv: (kv[1], kv[0]))
+        lines += aligned([[name, f"{value:.4f}"] for name, value in worst])
+    lines += held_out_lines(record)
+    model = record.get("model")
+    if model:
+        prior = ("" if model.get("pseudo_count") is None
+                 else f", pseudo-count {model['pseudo_count']:g}")
+        lines.append(f"model      {model['file']}  {model['estimator']}{prior}  "
+                     f"sha256 {model['sha256']}")
+    lines += confidence_lines(record)
+    lines.append("")
+    lines.append("caution: " + record.get("caution", ""))
+    return lines
+
+
+# --------------------------------------------------------------------------- run, history
+
+
+def run_table(rows: Sequence[Mapping[str, Any]]) -> str:
+    """``run``'s table: one row per stored run (``rows`` as ``run --json`` prints them,
+    each with its ``record``)."""
+    table = []
+    for item in rows:
+        rec, twin = item["record"], item["twin"]
+        twin_text = "-" if twin is None else (
+            f"{twin['run_id']} identical" if twin["identical"] else f"{twin['run_id']} DIFFERS")
+        table.append([rec["spec_name"], item["run_id"], rec["score"]["name"],
+                      f"{rec['score']['value']:.4f}", str(len(rec["edges"])),
+                      rec["search"]["stop_reason"], twin_text])
+    return render_table(["spec", "run", "score", "value", "edges", "stop", "twin"], table)
+
+
+def history_table(rows: Sequence[Mapping[str, Any]]) -> str:
+    """``history``'s table from :func:`runner.compare.history_rows`."""
+    table = [["*" if r["baseline"] else "", r.get("time") or "-", r["run_id"],
+              "REFUSED" if r["refused"] else r["data_sha256"],
+              "" if r["refused"] else str(r["rows"]), r.get("code_version", ""),
+              "" if r["refused"] else f"{r['score']} {r['per_row']:.6f}",
+              "" if r["refused"] else str(r["edges"]),
+              "-" if r.get("shd_previous") is None else str(r["shd_previous"])] for r in rows]
+    return render_table(["base", "time", "run", "data", "rows", "code", "score/row", "edges",
+                         "shd prev"], table)
+
+
+# --------------------------------------------------------------------------- compare
+
+
+def _fmt(value: Any) -> str:
+    if value is None:
+        return "-"
+    if isinstance(value, float):
+        return f"{value:.6f}"
+    text = str(value)
+    return text[:16] if len(text) == 64 else text  # hashes: a prefix is enough to read
+
+
+def held_out_comparison_lines(result: Mapping[str, Any]) -> list[str]:
+    """``compare``'s line on both runs' held-out fit (none unless both have one)."""
+    held = result.get("held_out")
+    if not held:
+        return []
+    note = "" if held["same_rows"] else "  (different held-out rows: not comparable)"
+    return [f"held out   log-likelihood per row A {held['a_per_row']:.6f}  B "
+            f"{held['b_per_row']:.6f}  delta {held['delta_per_row']:+.6f}{note}"]
+
+
+def compare_lines(result: Mapping[str, Any]) -> list[str]:
+    """The human report of :func:`runner.compare.compare_records`: inputs, scores, edges,
+    distances."""
+    ia, ib, differ = result["inputs"]["a"], result["inputs"]["b"], result["inputs"]["differ"]
+    rows = [[k, _fmt(ia[k]), _fmt(ib[k]), "differs" if k in differ else ""] for k in ia]
+    lines = [render_table(["input", f"A {result['a']}", f"B {result['b']}", ""], rows), ""]
+    s = result["score"]
+    lines.append(f"score      A {s['a']['name']} {s['a']['value']:.6f} ({s['a']['per_row']:.6f}"
+                 f" per row)   B {s['b']['name']} {s['b']['value']:.6f} "
+                 f"({s['b']['per_row']:.6f} per row)")
+    lines.append(f"delta      {s['delta']:+.6f} total, {s['delta_per_row']:+.6f} per row "
+                 f"({s['relative_per_row']:+.3e} relative)"
+                 + ("" if s["comparable"] else "  (different scores: not comparable)"))
+    rescored = result.get("rescored")
+    if rescored and "skipped" in rescored:
+        lines.append(f"rescored   skipped: {rescored['skipped']}")
+    elif rescored:
+        ab, ba = rescored["a_under_b"], rescored["b_under_a"]
+        lines.append(f"rescored   A under {ab['score']}: {ab['value']:.6f} ({ab['per_row']:.6f}"
+                     f" per row)   B under {ba['score']}: {ba['value']:.6f} "
+                     f"({ba['per_row']:.6f} per row)")
+    lines += held_out_comparison_lines(result)
+    lines += describe_columns(result["columns"])
+    e = result["edges"]
+    lines.append(f"edges      {len(e['added'])} added, {len(e['removed'])} removed, "
+                 f"{len(e['reversed'])} reversed (A -> B)")
+    lines += ["  " + line for line in describe_edges(result)]
+    sk = result["skeleton"]
+    lines.append(f"SHD        DAG {result['shd_dag']}  CPDAG {result['shd_cpdag']}   skeleton "
+                 f"precision {sk['precision']:.3f} recall {sk['recall']:.3f} (B against A)")
+    lines.append(f"verdict    {result['verdict']}")
+    cons = result.get("consensus")
+    if cons is not None:
+        e = cons["edges"]
+        lines.append(f"consensus  {len(e['added'])} added, {len(e['removed'])} removed, "
+                     f"{len(e['reversed'])} reversed (A -> B); SHD DAG {cons['shd_dag']} "
+                     f"CPDAG {cons['shd_cpdag']}; verdict {cons['verdict']}")
+        lines += ["  " + line for line in describe_edges(cons)]
+    env = result.get("environment")
+    if env is not None:
+        same_inputs = "input_sha256" not in result["inputs"]["differ"]
+        differ = result["verdict"] != "identical" or s["delta"] != 0 or (
+            cons is not None and cons["verdict"] != "identical")
+        lines.append(environment_sentence(env, same_inputs and differ))
+    return lines
+
+
+# --------------------------------------------------------------------------- pin, check
+
+
+def baseline_changes(old: Mapping[str, Any] | None, new: Mapping[str, Any]) -> list[str]:
+    """What re-pinning changed, one line each (``first baseline`` when there was none)."""
+    if old is None:
+        return ["first baseline of this spec"]
+    if old["run_id"] == new["run_id"] and old["graph_sha256"] == new["graph_sha256"]:
+        return ["unchanged: the same run was already the baseline"]
+    lines = [f"replaces baseline {old['run_id']}"]
+    for label, path in (("input hash", ("input_sha256",)), ("spec hash", ("spec_sha256",)),
+                        ("data hash", ("data", "sha256")), ("code version", ("code_version",)),
+                        ("graph hash", ("graph_sha256",))):
+        a, b = field_at(old, path), field_at(new, path)
+        if a != b:
+            lines.append(f"{label}: {str(a)[:16]} -> {str(b)[:16]}")
+    s = score_delta(old, new)
+    lines.append(f"score per row: {s['a']['per_row']:.6f} -> {s['b']['per_row']:.6f} "
+                 f"({s['delta_per_row']:+.6f})")
+    diff = graph_diff(old, new)
+    lines += describe_edges(diff)
+    lines += describe_columns(column_changes(old["data"]["columns"], new["data"]["columns"]))
+    lines.append(f"verdict: {diff['verdict']}")
+    return lines
+
+
+def _result(rule: Mapping[str, Any], text: str) -> str:
+    return f"{text}: {'FAIL' if rule['status'] == 'fail' else 'ok'}"
+
+
+def check_table(report: Mapping[str, Any]) -> str:
+    """The table ``check`` prints per spec: each gate rule, baseline, new, result."""
+    head = (f"{report['spec']}: {report['status'].upper()}  run {report['run_id']}  "
+            f"baseline {report['baseline_run_id'] or '-'}")
+    if report["status"] == "no-baseline":
+        return "\n".join([head, *(f"  FAIL {f}" for f in report["failures"])])
+    s, g = report["score"], report["gate"]
+    rules = {r["rule"]: r for r in report["rules"]}
+    rows = []
+    if "consensus" in rules and rules["consensus"]["status"] == "fail":
+        rows.append(["consensus networks", "-" if rules["consensus"]["baseline"] is None
+                     else "present", "-" if rules["consensus"]["new"] is None else "present",
+                     "FAIL"])
+    if report["same_inputs"]:
+        rows.append(["inputs", "same input hash", "", "identical"
+                     if rules["reproduce"]["status"] != "fail" else "NOT REPRODUCED"])
+    else:
+        rows.append(["inputs", "differ", "", "compared by gate"])
+    rows += [
+        [f"score per row ({s['b']['name']})", f"{s['a']['per_row']:.6f}",
+         f"{s['b']['per_row']:.6f}", _result(
+             rules["score"], f"{s['relative_per_row']:+.3e} vs tol {g['score_tolerance']:g}")],
+        ["class edge changes" + (" (consensus)" if g.get("on") == "consensus" else ""), "",
+         str(report["shd_cpdag"]),
+         _result(rules["class-edges"], f"max {g['max_edge_changes']}")],
+        ["columns and states", "", str(rules["columns"]["new"]),
+         "FAIL" if rules["columns"]["status"] == "fail" else "ok"],
+        ["verdict", "", str(report["verdict"]), ""],
+    ]
+    body = render_table(["gate", "baseline", "new", "result"], rows)
+    extra = [f"  FAIL {f}" for f in report["failures"]]
+    extra += [f"  note {n}" for n in report["notes"]]
+    extra += [f"  change {c}" for c in report["changes"]]
+    return "\n".join([head, body, *extra])
