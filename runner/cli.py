@@ -362,7 +362,7 @@ def _cmd_export(args: argparse.Namespace) -> int:
 
 def _write_report(root: Path, ref: str, other_ref: str | None, out: str | None,
                   show_forbidden: bool = False) -> Path:
-    from runner.report import default_report_path, render_report
+    from runner.present.report import default_report_path, render_report
 
     folder = resolve_run(root, ref)
     record = read_run(folder)
