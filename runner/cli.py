@@ -22,6 +22,7 @@ from typing import Any
 
 from runner import __version__, compare
 from runner.batch import run_specs
+from runner.compare.rescore import rescore
 from runner.engines import ENGINE_ENV, choose_engine, open_engine
 from runner.environment import environment_changes, environment_sentence
 from runner.errors import EnvironmentFault, InputError, Problem
@@ -273,9 +274,9 @@ def _cmd_compare(args: argparse.Namespace) -> int:
                                        and not compare.score_delta(a, b)["comparable"]):
         try:
             rescored = {
-                "a_under_b": compare.rescore(a, b["score"]["name"], b["score"].get("ess") or 1.0,
+                "a_under_b": rescore(a, b["score"]["name"], b["score"].get("ess") or 1.0,
                                              args.data, (b.get("spec") or {}).get("score")),
-                "b_under_a": compare.rescore(b, a["score"]["name"], a["score"].get("ess") or 1.0,
+                "b_under_a": rescore(b, a["score"]["name"], a["score"].get("ess") or 1.0,
                                              args.data, (a.get("spec") or {}).get("score")),
             }
         except InputError as exc:
@@ -404,7 +405,7 @@ def _cmd_export(args: argparse.Namespace) -> int:
 
 def _write_report(root: Path, ref: str, other_ref: str | None, out: str | None,
                   show_forbidden: bool = False) -> Path:
-    from runner.report import default_report_path, render_report
+    from runner.present.report import default_report_path, render_report
 
     folder = resolve_run(root, ref)
     record = read_run(folder)

@@ -1,8 +1,10 @@
 """A stored run's learned graph in open formats: GraphML, Graphviz DOT and JSON.
 
-Pure functions of a run record (and its fitted model); nodes carry their tier (0-based;
--1 when in no tier), kind and states, edges whether the spec required them and, for a run
-with bootstrap resampling, their confidence (share of replicates holding the edge).
+Pure functions of a run record (and its fitted model); nodes carry their tier (numbered
+from 1 as everywhere else: 1 for the spec's first tier; 0 when in no tier), the tier's
+name when the spec names its tiers (``tier_names``), kind and states; edges whether the
+spec required them and, for a run with bootstrap resampling, their confidence (share of
+replicates holding the edge).
 Our JSON also carries the fitted tables of ``model.json``.
 """
 
@@ -20,16 +22,28 @@ FORMATS = ("graphml", "dot", "json")
 
 
 def learned_graph(record: dict[str, Any]) -> nx.DiGraph:
-    """The run's DAG as a networkx graph with node and edge attributes, nodes in data order."""
+    """The run's DAG as a networkx graph with node and edge attributes, nodes in data order.
+
+    Node attributes: ``tier`` (1 for the first tier, 0 for a variable in no tier),
+    ``tier_name`` (only when the spec names its tiers), ``kind`` and ``states`` (joined by
+    ``|``). Edge attributes: ``required`` and, with a bootstrap block, ``confidence``.
+    """
     spec = record.get("spec", {})
-    tier_of = {name: t for t, tier in enumerate(spec.get("tiers", [])) for name in tier}
+    tier_of: dict[str, int] = {}
+    for number, tier in enumerate(spec.get("tiers", []), start=1):
+        for name in tier:
+            tier_of.setdefault(name, number)
+    names = spec.get("tier_names")
+    tier_names = [str(n) for n in names] if isinstance(names, list) else []
     required = {tuple(e) for e in spec.get("required", [])}
     graph: nx.DiGraph[str] = nx.DiGraph(
         name=record["spec_name"], run_id=record["run_id"], score=record["score"]["name"],
         graph_sha256=record["graph_sha256"])
     for name, column in record["data"]["columns"].items():
-        graph.add_node(name, tier=tier_of.get(name, -1), kind=column["kind"],
-                       states="|".join(column["states"]))
+        tier = tier_of.get(name, 0)
+        graph.add_node(name, tier=tier, kind=column["kind"], states="|".join(column["states"]))
+        if 0 < tier <= len(tier_names):
+            graph.nodes[name]["tier_name"] = tier_names[tier - 1]
     confidence = edge_confidence(record)
     for a, b in record["edges"]:
         graph.add_edge(a, b, required=(a, b) in required)
@@ -50,16 +64,23 @@ def _dot_id(text: str) -> str:
 
 
 def to_dot(record: dict[str, Any], model: dict[str, Any] | None = None) -> str:
-    """Graphviz DOT text: one subgraph rank per tier, required edges drawn bold, edges
+    """Graphviz DOT text: one subgraph rank per tier (in tier order, a comment naming
+    it ``tier 1`` or ``tier 1 · name``), variables in no tier listed after them, required
+    edges drawn bold, edges
     with bootstrap confidence wider (penwidth 1 + 3 x confidence) and labelled with it."""
     graph = learned_graph(record)
     lines = [f"digraph {_dot_id(record['spec_name'])} {{", "  rankdir=TB;",
              f"  label={_dot_id(record['run_id'] + ' (' + record['score']['name'] + ')')};"]
-    tiers = sorted({data["tier"] for _, data in graph.nodes(data=True)})
+    tiers = sorted({data["tier"] for _, data in graph.nodes(data=True)}, key=lambda t: (t == 0, t))
     for tier in tiers:
-        members = [n for n, data in graph.nodes(data=True) if data["tier"] == tier]
-        body = " ".join(_dot_id(n) + ";" for n in members)
-        lines.append(f"  {{ rank=same; {body} }}" if tier >= 0 else f"  {body}")
+        members = [(n, data) for n, data in graph.nodes(data=True) if data["tier"] == tier]
+        body = " ".join(_dot_id(n) + ";" for n, _ in members)
+        if tier == 0:
+            lines += ["  // in no tier", f"  {body}"]
+            continue
+        name = members[0][1].get("tier_name")
+        lines += [f"  // tier {tier}" + (f" · {name}" if name else "").replace("\n", " "),
+                  f"  {{ rank=same; {body} }}"]
     for a, b, data in graph.edges(data=True):
         attrs = ["style=bold"] if data["required"] else []
         if "confidence" in data:

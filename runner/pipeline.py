@@ -17,6 +17,7 @@ import numpy as np
 
 from runner import registry
 from runner.bootstrap import ReplicateJob, bootstrap_block, replicate_seeds, run_replicate
+from runner.caution import CAUTION
 from runner.codeversion import code_sha256, code_version
 from runner.constraints import Constraints, build_constraints
 from runner.data import Dataset, load_dataset, loader_settings
@@ -36,12 +37,6 @@ from runner.search.parent_sets import SearchRefused
 from runner.search.whole import PlanContext, SearchTask
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
 from runner.store import find_twin, model_reference, read_baseline, trace_csv, write_run
-
-CAUTION = (
-    "A learned structure is statistical association under assumptions (no hidden common "
-    "causes, no selection bias, enough data, a correct model class), not proof of cause. "
-    "Decisions that affect people or safety need review by domain experts."
-)
 
 
 @dataclass

@@ -16,6 +16,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from runner import compare
+from runner.compare.rescore import rescore
 from runner.errors import InputError
 from runner.graph import graph_sha256
 from runner.pipeline import run_spec
@@ -248,14 +249,14 @@ def _runs(demo: Path) -> list[Path]:
 def test_rescore_reproduces_the_stored_score_and_refuses_changed_data(demo: Path,
                                                                       tmp_path: Path) -> None:
     rec = read_run(next(p for p in _runs(demo) if "kiln-line" in str(p)))
-    same = compare.rescore(rec, "bic")
+    same = rescore(rec, "bic")
     assert same["value"] == rec["score"]["value"]
     changed = tmp_path / "kiln-line.csv"
     changed.write_bytes((demo / "datasets" / "kiln-line.csv").read_bytes() + b"")
     moved = {**rec, "data": {**rec["data"], "sha256": "0" * 64}}
     with pytest.raises(InputError, match="name the file with --data"):
-        compare.rescore(moved, "bic")
-    explicit = compare.rescore(moved, "k2", data_path=changed)
+        rescore(moved, "bic")
+    explicit = rescore(moved, "k2", data_path=changed)
     assert explicit["data_sha256"] == rec["data"]["sha256"] and explicit["score"] == "k2"
 
 
@@ -284,7 +285,7 @@ def test_rescoring_a_run_under_its_own_score_gives_its_stored_score_exactly(
                     "evaluation: {holdout: 0.25, seed: 3}\n", encoding="utf-8")
     rec = read_run(run_spec(spec, tmp_path / "results").folder)
     assert rec["edges"], "the case should learn some edges"
-    again = compare.rescore(rec, rec["score"]["name"])
+    again = rescore(rec, rec["score"]["name"])
     assert again["value"] == rec["score"]["value"]
     assert again["rows"] == rec["data"]["rows_learned"]
     assert again["data_sha256"] == rec["data"]["sha256"]

@@ -146,7 +146,7 @@ def test_rescoring_a_held_out_run_uses_its_learning_rows(
         stored: tuple[Path, dict, dict]) -> None:
     # Rescored under its own score, a held-out run must give back its own stored score:
     # both are computed on the learning rows of the same seeded split.
-    from runner.compare import rescore
+    from runner.compare.rescore import rescore
 
     _, record, _ = stored
     again = rescore(record, record["score"]["name"])

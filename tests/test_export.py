@@ -44,8 +44,10 @@ def test_graphml_round_trip_through_networkx(stored_run: tuple[Path, dict],
     graph = nx.read_graphml(out)
     assert sorted(graph.nodes) == sorted(record["data"]["columns"])
     assert sorted(map(list, graph.edges)) == record["edges"]
-    assert graph.nodes["kiln_peak"]["tier"] == 1
-    assert graph.nodes["grade"]["tier"] == 3
+    # tiers numbered from 1, as in the spec's reading order and the report
+    assert graph.nodes["supplier"]["tier"] == 1
+    assert graph.nodes["kiln_peak"]["tier"] == 2
+    assert graph.nodes["grade"]["tier"] == 4
     assert graph.nodes["grade"]["kind"] == "discrete"
     # the same graph: nodes with the same attributes, edges in the same direction
     from runner.export import learned_graph
@@ -79,6 +81,39 @@ def test_dot_parsed_back_by_pydot(stored_run: tuple[Path, dict], export: CliCall
     bold = [e for e in graph.get_edges() if e.get_style() == "bold"]
     assert [(e.get_source(), e.get_destination()) for e in bold] == [('"kiln_peak"',
                                                                       '"crack"')]
+
+
+def test_tiers_from_one_named_when_the_spec_names_them(stored_run: tuple[Path, dict]) -> None:
+    # reference reader: networkx.read_graphml; reference parser: pydot
+    import io
+
+    import pydot
+
+    from runner.export import to_dot, to_graphml, to_json
+
+    _, record = stored_run
+    tiers = [[n for n in tier if n != "glaze_batch"] for tier in record["spec"]["tiers"]]
+    spec = {**record["spec"], "tiers": tiers,
+            "tier_names": ["raw", "firing", "defects", "grade"]}
+    named = {**record, "spec": spec}
+    graph = nx.read_graphml(io.BytesIO(to_graphml(named).encode()))
+    assert graph.nodes["supplier"]["tier"] == 1
+    assert graph.nodes["supplier"]["tier_name"] == "raw"
+    assert graph.nodes["kiln_peak"]["tier"] == 2
+    assert graph.nodes["kiln_peak"]["tier_name"] == "firing"
+    assert graph.nodes["glaze_batch"]["tier"] == 0  # in no tier
+    assert "tier_name" not in graph.nodes["glaze_batch"]
+    document = json.loads(to_json(named))
+    by_name = {node["name"]: node for node in document["nodes"]}
+    assert (by_name["grade"]["tier"], by_name["grade"]["tier_name"]) == (4, "grade")
+    dot = to_dot(named)
+    assert "  // tier 2 · firing\n  { rank=same;" in dot and "// in no tier" in dot
+    assert pydot.graph_from_dot_data(dot) is not None
+    # without names: numbers only, no tier_name attribute
+    plain = nx.read_graphml(io.BytesIO(to_graphml(record).encode()))
+    assert all("tier_name" not in data for _, data in plain.nodes(data=True))
+    assert sorted({data["tier"] for _, data in plain.nodes(data=True)}) == [1, 2, 3, 4]
+    assert "  // tier 1\n" in to_dot(record)
 
 
 def with_bootstrap(record: dict) -> dict:

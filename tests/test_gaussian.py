@@ -368,7 +368,7 @@ def test_every_search_method_runs_on_a_gaussian_score(tmp_path: Path, score: str
 
 
 def test_rescoring_a_gaussian_run_under_bge_uses_the_other_runs_prior(tmp_path: Path) -> None:
-    from runner.compare import rescore
+    from runner.compare.rescore import rescore
 
     write_continuous(tmp_path, simulate(600, seed=9))
     results = tmp_path / "results"

@@ -8,12 +8,17 @@ import re
 import shutil
 import struct
 import subprocess
+import sys
 import zlib
 from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
 from conftest import CliCall, CliResult, demo_spec_with_holdout
+
+import runner.present.report as report_module
+from runner.present.report import render_report
+from runner.store import read_model, read_run
 
 VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",
         "track", "wbr"}
@@ -135,6 +140,24 @@ def test_report_is_well_formed_and_draws_every_variable_and_edge(
     assert again.read_bytes() == out.read_bytes()
 
 
+def svg_of(text: str, fig: str) -> str:
+    """The ``<svg id=fig>`` element of a page."""
+    found = re.search(rf'<svg class="figure" id="{fig}".*?</svg>', text, flags=re.DOTALL)
+    assert found is not None, fig
+    return found.group(0)
+
+
+def legend_kinds(text: str, fig: str) -> set[str]:
+    """The kinds the legend of picture ``fig`` lists."""
+    return set(re.findall(r'<g class="legend-item legend-([a-z]+)">', svg_of(text, fig)))
+
+
+def drawn_kinds(text: str, fig: str) -> set[str]:
+    """The kinds of edge and pair the picture ``fig`` draws."""
+    return set(re.findall(r'<g class="(?:edge|pair) (?:edge-|pair-|diff-)([a-z]+)"',
+                          svg_of(text, fig)))
+
+
 def assert_offline(text: str) -> None:
     """No external reference at all: no scheme, no protocol-relative link, no src/href,
     no stylesheet import; CSS url() only to ids in the page."""
@@ -165,8 +188,15 @@ def test_report_against_another_run(two_runs: tuple[Path, dict, dict],
         assert len(found) == count, kind
     assert sum(expected.values()) > expected["diff-common"], "the runs should differ"
     words = " ".join(checked.text)
-    for legend in ("added in B", "removed in B", "reversed in B", "in both runs"):
-        assert legend in words
+    # the legend lists exactly the kinds drawn
+    drawn = {kind.removeprefix("diff-") for kind, count in expected.items() if count}
+    assert legend_kinds(text, "diff") == {"node", "band"} | drawn
+    texts = {"added": "added in B", "removed": "removed in B", "reversed": "reversed in B",
+             "common": "in both runs"}
+    assert all((texts[k] in words) == (k in drawn) for k in texts)
+    # the overlay comes right after the inputs, before the run's own network
+    headings = re.findall(r"<h2>([^<]*)</h2>", text)
+    assert headings[:3] == ["Inputs and hashes", f"Against run {a['run_id']}", "Network"]
     # the restarted run's trace: one line per run and the kicks between them
     series = re.findall(r'<polyline class="series"[^>]*><title>([^<]*)</title>', text)
     assert series.count("first run") == 1 and "restart 1" in series
@@ -175,12 +205,23 @@ def test_report_against_another_run(two_runs: tuple[Path, dict, dict],
     assert_offline(text)
 
 
+SCRIPT = "<script>alert(1)</script>"
+
+
+def without_pictures(text: str) -> str:
+    """The page with every ``<svg>`` element cut out: what the template wrote itself."""
+    return re.sub(r"<svg.*?</svg>", "", text, flags=re.DOTALL)
+
+
 def test_text_is_escaped(tmp_path: Path, run: CliCall, report: CliCall) -> None:
+    # names with markup in them, in the data's header and the spec's tiers: the template
+    # engine's autoescaping (HTML) and runner.present.svg (pictures) escape them
     data = tmp_path / "odd.csv"
-    data.write_text('"a<b>","c&d","e""f",g\n' + "".join(
+    data.write_text(f'"a<b>","c&d","e""f","{SCRIPT}"\n' + "".join(
         f"{i % 2},{(i // 2) % 2},{i % 3},{(i * 7) % 2}\n" for i in range(60)))
     spec = tmp_path / "odd.yaml"
-    spec.write_text(f"name: odd\ndataset:\n  path: {data.name}\ntiers:\n  - ['a<b>']\n")
+    spec.write_text(f"name: odd\ndataset:\n  path: {data.name}\ntiers:\n  - ['a<b>']\n"
+                    f"  - ['{SCRIPT}']\n")
     stored = run("run", str(spec), "--results", str(tmp_path / "results"), "--json")
     assert stored.returncode == 0, stored.stderr
     run_id = json.loads(stored.stdout)["runs"][0]["run_id"]
@@ -188,9 +229,103 @@ def test_text_is_escaped(tmp_path: Path, run: CliCall, report: CliCall) -> None:
     assert report(tmp_path, run_id, "--out", str(out)).returncode == 0
     text = out.read_text()
     checked = parse(text)
-    assert "<b>" not in text and "a&lt;b&gt;" in text and "c&amp;d" in text
+    assert "<b>" not in text and "<script" not in text
+    for part in (without_pictures(text), svg_of(text, "net")):
+        assert "a&lt;b&gt;" in part and "c&amp;d" in part
+        assert "&lt;script&gt;alert(1)&lt;/script&gt;" in part
     assert 'data-name="e&quot;f"' in text
-    assert {"a<b>", "c&d", 'e"f'} <= set(checked.text)
+    assert {"a<b>", "c&d", 'e"f', SCRIPT} <= set(checked.text)
+    # a tier's name from the spec is escaped in the band label too
+    folder = tmp_path / "results" / "odd" / "runs" / run_id
+    record = read_run(folder)
+    record["spec"]["tier_names"] = ["raw & <i>early</i>", SCRIPT]
+    page = render_report(record, folder, read_model(folder, record))
+    assert "<script" not in page and "<i>" not in page
+    assert "tier 1 · raw &amp; &lt;i&gt;early&lt;/i&gt;" in svg_of(page, "net")
+    assert {"tier 1 · raw & <i>early</i>", f"tier 2 · {SCRIPT}"} <= set(parse(page).text)
+
+
+def test_legend_lists_only_what_the_picture_draws(two_runs: tuple[Path, dict, dict],
+                                                  report: CliCall) -> None:
+    folder, a, _ = two_runs
+    run_folder = folder / "results" / "kiln-line" / "runs" / a["run_id"]
+    model = read_model(run_folder, a)
+
+    def kinds(record: dict, show_forbidden: bool = False) -> tuple[set[str], set[str]]:
+        page = render_report(record, run_folder, model, show_forbidden=show_forbidden)
+        return legend_kinds(page, "net"), drawn_kinds(page, "net")
+
+    # the demo: learned edges and one required edge; forbidden pairs only when asked
+    legend, drawn = kinds(a)
+    assert drawn == {"learned", "required"} and legend == {"node", "band"} | drawn
+    legend, drawn = kinds(a, show_forbidden=True)
+    assert drawn == {"learned", "required", "forbidden"}
+    assert legend == {"node", "band"} | drawn
+    # nothing required, nothing forbidden: neither in the legend, even when asked
+    spec = {**a["spec"], "required": [], "forbidden": []}
+    legend, drawn = kinds({**a, "spec": spec}, show_forbidden=True)
+    assert drawn == {"learned"} and legend == {"node", "band", "learned"}
+    # bootstrap confidence: the width scale joins the legend
+    shares = {"replicates": 10, "frequencies": [
+        {"edge": e, "directed": 0.5, "class": 0.5, "adjacent": 0.5} for e in a["edges"]]}
+    legend, drawn = kinds({**a, "bootstrap": shares})
+    assert legend == {"node", "band", "learned", "required", "confidence"}
+    # no tiers: the band entry says depth, not tier
+    page = render_report({**a, "spec": {**a["spec"], "tiers": []}}, run_folder, model)
+    legend_text = re.search(r'<g class="legend-item legend-band">.*?<text[^>]*>([^<]*)</text>',
+                            svg_of(page, "net"))
+    assert legend_text is not None and legend_text.group(1).startswith("depth")
+
+
+def test_tiers_are_numbered_from_one_and_named_when_the_spec_names_them(
+        two_runs: tuple[Path, dict, dict]) -> None:
+    folder, a, _ = two_runs
+    run_folder = folder / "results" / "kiln-line" / "runs" / a["run_id"]
+    model = read_model(run_folder, a)
+    labels = re.findall(r'class="band-label">([^<]*)</text>',
+                        svg_of(render_report(a, run_folder, model), "net"))
+    assert labels == ["tier 1", "tier 2", "tier 3", "tier 4"]
+    named = {**a, "spec": {**a["spec"], "tier_names": ["raw", "firing", "defects", "grade"]}}
+    labels = re.findall(r'class="band-label">([^<]*)</text>',
+                        svg_of(render_report(named, run_folder, model), "net"))
+    assert labels == ["tier 1 · raw", "tier 2 · firing", "tier 3 · defects", "tier 4 · grade"]
+
+
+def test_a_cut_table_says_so(two_runs: tuple[Path, dict, dict],
+                             monkeypatch: pytest.MonkeyPatch) -> None:
+    folder, a, _ = two_runs
+    run_folder = folder / "results" / "kiln-line" / "runs" / a["run_id"]
+    model = read_model(run_folder, a)
+    assert model is not None
+    families = len(a["score"]["families"])
+    seen = {name: len(var["configurations"]) for name, var in model["variables"].items()}
+    # nothing cut: no cut note
+    whole = render_report(a, run_folder, model)
+    assert f"All {families} family scores" in whole
+    long_tables = [n for n, k in seen.items() if k > report_module.TABLE_ROWS_SHOWN]
+    assert whole.count('class="note cut-note"') == len(long_tables)
+    # cut: the families table and every fitted table longer than the cut say so
+    monkeypatch.setattr(report_module, "TOP_FAMILIES", families - 2)
+    monkeypatch.setattr(report_module, "TABLE_ROWS_SHOWN", 3)
+    page = render_report(a, run_folder, model)
+    words = " ".join(parse(page).text)
+    assert f"The {families - 2} lowest of {families} family scores" in words
+    cut = sorted(n for n, k in seen.items() if k > 3)
+    assert cut and len(cut) < len(seen)
+    for name in cut:
+        assert f"Showing the first 3 of {seen[name]} rows" in words
+        assert f"first 3 of {seen[name]} rows shown" in words  # also in the closed summary
+    assert page.count('class="note cut-note"') == 1 + len(cut)
+
+
+def test_the_report_does_not_reach_back_up_the_pipeline() -> None:
+    # a fresh interpreter: importing the report loads no part of the pipeline
+    code = ("import sys, runner.present.report; "
+            "print(sorted(m for m in sys.modules if m.startswith('runner.pipeline')))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=Path(__file__).resolve().parents[1], timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip() == "[]"
 
 
 # --------------------------------------------------------------------------- Chromium

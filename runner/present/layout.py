@@ -1,12 +1,14 @@
 """A deterministic layered layout for drawing a network: tiers as horizontal bands.
 
-Bands, top to bottom: the spec's tiers in order, then the variables in no tier, one band
-per topological depth in the graph among themselves (depth 0: no untiered parent). Within
-a band, variables start in the order the spec lists them (untiered ones in data order) and
-are then reordered by barycentre sweeps (Sugiyama, Tagawa & Toda 1981, "Methods for
-visual understanding of hierarchical system structures"): a down sweep orders each band
-by the mean position of its neighbours in earlier bands, an up sweep by those in later
-bands; ties keep the current order. A fixed number of sweeps makes it deterministic.
+Bands, top to bottom: the spec's tiers in order (labelled from 1, "tier 1", with the
+tier's name beside the number when the spec names its tiers), then the variables in no
+tier, one band per topological depth in the graph among themselves (depth 0: no untiered
+parent). Within a band, variables start in the order the spec lists them (untiered ones
+in data order) and are then reordered by barycentre sweeps (Sugiyama, Tagawa & Toda 1981,
+"Methods for visual understanding of hierarchical system structures"): a down sweep
+orders each band by the mean position of its neighbours in earlier bands, an up sweep by
+those in later bands; ties keep the current order. A fixed number of sweeps makes it
+deterministic.
 """
 
 from __future__ import annotations
@@ -45,8 +47,16 @@ def untiered_depths(names: Sequence[str], edges: Sequence[Sequence[str]]) -> dic
     return depth
 
 
+def tier_label(number: int, tier_names: Sequence[str] | None = None) -> str:
+    """A tier's label, numbered from 1: ``tier 2``, or ``tier 2 · firing`` when the spec
+    names its tiers (``tier_names``, one name per tier)."""
+    name = tier_names[number - 1] if tier_names and number <= len(tier_names) else ""
+    return f"tier {number}" + (f" · {name}" if name else "")
+
+
 def bands_of(names: Sequence[str], tiers: Sequence[Sequence[str]],
-             edges: Sequence[Sequence[str]]) -> list[Band]:
+             edges: Sequence[Sequence[str]],
+             tier_names: Sequence[str] | None = None) -> list[Band]:
     """The bands before reordering."""
     present = set(names)
     bands: list[Band] = []
@@ -55,7 +65,7 @@ def bands_of(names: Sequence[str], tiers: Sequence[Sequence[str]],
         members = tuple(n for n in tier if n in present and n not in placed)
         placed.update(members)
         if members:
-            bands.append(Band(f"tier {t + 1}", members))
+            bands.append(Band(tier_label(t + 1, tier_names), members))
     rest = [n for n in names if n not in placed]
     if rest:
         depth = untiered_depths(rest, edges)
@@ -80,9 +90,27 @@ def _sweep(bands: list[list[str]], neighbours: dict[str, set[str]], down: bool) 
 
 
 def layered(names: Sequence[str], tiers: Sequence[Sequence[str]],
-            edges: Sequence[Sequence[str]]) -> list[Band]:
-    """Bands with their members ordered by :data:`SWEEPS` down-and-up barycentre sweeps."""
-    bands = bands_of(names, tiers, edges)
+            edges: Sequence[Sequence[str]],
+            tier_names: Sequence[str] | None = None) -> list[Band]:
+    """Bands with their members ordered by :data:`SWEEPS` down-and-up barycentre sweeps.
+
+    Parameters
+    ----------
+    names : sequence of str
+        Every variable to place, in data order.
+    tiers : sequence of sequences of str
+        The spec's tiers, earliest first.
+    edges : sequence of [from, to]
+        The edges whose ends pull each other together in the sweeps.
+    tier_names : sequence of str, optional
+        The spec's names of its tiers (``tier_names``), shown beside the numbers.
+
+    Returns
+    -------
+    list of Band
+        Top to bottom, each with its label and its members left to right.
+    """
+    bands = bands_of(names, tiers, edges, tier_names)
     neighbours: dict[str, set[str]] = {n: set() for n in names}
     for a, b in edges:
         if a in neighbours and b in neighbours:
