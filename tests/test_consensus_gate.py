@@ -1,4 +1,4 @@
-"""Gating on the bootstrap consensus network (`gate.on: consensus`), `show` and `compare`."""
+"""Gating on the bootstrap consensus network (`gate.graph: consensus`), `show` and `compare`."""
 
 from __future__ import annotations
 
@@ -33,19 +33,19 @@ def _record(edges: list[list[str]], consensus: list[list[str]] | None,
 def test_gate_on_consensus_compares_the_consensus_networks() -> None:
     old = baseline_from_record(_record([["a", "b"]], [["a", "b"], ["b", "c"]]), "t")
     new = _record([["a", "b"]], [["a", "b"]], inputs="j" * 64)
-    on_run = evaluate_gate(old, new, {**GATE, "on": "run"})
+    on_run = evaluate_gate(old, new, {**GATE, "graph": "run"})
     assert on_run["ok"]
-    on_consensus = evaluate_gate(old, new, {**GATE, "on": "consensus"})
+    on_consensus = evaluate_gate(old, new, {**GATE, "graph": "consensus"})
     assert not on_consensus["ok"] and on_consensus["shd_cpdag"] == 1
     assert "class edge removed b - c" in on_consensus["changes"]
     same = evaluate_gate(old, _record([["a", "b"]], [["a", "b"], ["b", "c"]], inputs="j" * 64),
-                         {**GATE, "on": "consensus"})
+                         {**GATE, "graph": "consensus"})
     assert same["ok"]
 
 
 def test_gate_on_consensus_needs_a_consensus_on_both_sides() -> None:
     old = baseline_from_record(_record([["a", "b"]], None), "t")
-    report = evaluate_gate(old, _record([["a", "b"]], [["a", "b"]]), {**GATE, "on": "consensus"})
+    report = evaluate_gate(old, _record([["a", "b"]], [["a", "b"]]), {**GATE, "graph": "consensus"})
     assert not report["ok"]
     assert any("has no bootstrap consensus network" in f for f in report["failures"])
 
@@ -53,7 +53,7 @@ def test_gate_on_consensus_needs_a_consensus_on_both_sides() -> None:
 def test_same_inputs_with_a_different_consensus_is_non_determinism() -> None:
     old = baseline_from_record(_record([["a", "b"]], [["a", "b"]]), "t")
     new = _record([["a", "b"]], [["b", "a"]])
-    report = evaluate_gate(old, new, {**GATE, "on": "consensus"})
+    report = evaluate_gate(old, new, {**GATE, "graph": "consensus"})
     assert any("non-determinism" in f and "consensus graph" in f for f in report["failures"])
 
 
@@ -69,7 +69,7 @@ def test_compare_reports_both_consensus_networks() -> None:
 @pytest.mark.slow
 def test_show_pin_check_story_on_consensus(tmp_path: Path, cli: CliCall) -> None:
     spec = write_case(tmp_path)
-    spec.write_text(spec.read_text() + BOOT + "gate: {on: consensus}\n")
+    spec.write_text(spec.read_text() + BOOT + "gate: {graph: consensus}\n")
     first = cli("run", str(spec), "--workers", "1", "--json", "--results", "r", cwd=tmp_path)
     assert first.returncode == 0, first.stderr
     run_id = json.loads(first.stdout)["runs"][0]["run_id"]

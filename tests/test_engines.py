@@ -154,7 +154,7 @@ def test_bad_bootstrap_in_any_spec_stores_nothing(tmp_path: Path, cli: CliCall) 
     bad = tmp_path / "bad.yaml"
     for text, key in (("bootstrap: {replicates: 0}\n", "bootstrap.replicates"),
                       ("bootstrap: {replicates: 5, threshold: 1.5}\n", "bootstrap.threshold"),
-                      ("gate: {on: consensus}\n", "gate.on")):
+                      ("gate: {graph: consensus}\n", "gate.graph")):
         bad.write_text(spec.read_text().replace("small-line", "bad-line") + text)
         done = cli("run", str(spec), str(bad), "--workers", "1", "--results", "results",
                    cwd=tmp_path)

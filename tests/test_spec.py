@@ -60,7 +60,7 @@ gate:                            # what `dagmill check` enforces against the pin
   score_tolerance: 1.0e-9        # relative drop in per-row score allowed before failing
   max_edge_changes: 0            # edges added + removed + reversed allowed (CPDAG level)
   allow_new_states: false        # a data drop with new or vanished states fails unless true
-  on: run                        # run | consensus (bootstrap consensus network)
+  graph: run                     # run | consensus (bootstrap consensus network)
 """
 
 BASE = "name: case-one\ndataset:\n  path: data.csv\n"
@@ -92,7 +92,7 @@ def test_guide_example_loads_with_defaults_lines_and_paths(tmp_path: Path) -> No
     path = write(tmp_path / "specs", EXAMPLE)
     spec = load_spec(path)
     assert spec.name == "kiln-line"
-    assert spec.gate.on == "run"
+    assert spec.gate.graph == "run"
     assert spec.gate.score_tolerance == 1e-9
     assert spec.search.budget.max_seconds == 600.0
     assert spec.dataset.max_states == 64
@@ -118,7 +118,7 @@ def test_minimal_spec_fills_every_default(tmp_path: Path) -> None:
     assert data["search"]["method"] == "ges"  # the default under a score-equivalent score
     assert data["search"]["budget"] == {"max_evaluations": None, "max_seconds": 600.0,
                                         "max_steps": 10000}
-    assert data["gate"] == {"allow_new_states": False, "max_edge_changes": 0, "on": "run",
+    assert data["gate"] == {"allow_new_states": False, "max_edge_changes": 0, "graph": "run",
                             "score_tolerance": 1e-9}
     assert data["tiers"] == [] and data["parent_cap"] is None
     assert list(data) == sorted(data)
@@ -127,9 +127,9 @@ def test_minimal_spec_fills_every_default(tmp_path: Path) -> None:
 
 def test_yaml_words_like_on_and_yes_stay_text(tmp_path: Path) -> None:
     spec = load_spec(write(tmp_path, BASE + "tiers:\n  - [yes, no]\n  - [on, off]\n"
-                                           "gate:\n  on: run\n  score_tolerance: 1e-6\n"))
+                                           "gate:\n  graph: run\n  score_tolerance: 1e-6\n"))
     assert spec.tiers == [["yes", "no"], ["on", "off"]]
-    assert spec.gate.on == "run"
+    assert spec.gate.graph == "run"
     assert spec.gate.score_tolerance == 1e-6
 
 
@@ -369,11 +369,11 @@ def test_fit_and_evaluation_sections(tmp_path: Path) -> None:
 
 def test_bootstrap_section_is_read_with_defaults(tmp_path: Path) -> None:
     spec = load_spec(write(tmp_path, BASE + "bootstrap: {replicates: 20}\n"
-                           "gate: {on: consensus}\n"))
+                           "gate: {graph: consensus}\n"))
     assert spec.bootstrap is not None
     assert (spec.bootstrap.replicates, spec.bootstrap.seed, spec.bootstrap.threshold) == (
         20, 0, 0.5)
-    assert spec.gate.on == "consensus"
+    assert spec.gate.graph == "consensus"
 
 
 @pytest.mark.parametrize(("text", "key", "words"), [
@@ -382,7 +382,7 @@ def test_bootstrap_section_is_read_with_defaults(tmp_path: Path) -> None:
     ("bootstrap: {replicates: 5, threshold: 0}\n", "bootstrap.threshold", "greater than 0"),
     ("bootstrap: {replicates: 5, threshold: 1.5}\n", "bootstrap.threshold", "at most 1"),
     ("bootstrap: {threshold: 0.5}\n", "bootstrap.replicates", "is required"),
-    ("gate: {on: consensus}\n", "gate.on", "needs a bootstrap section"),
+    ("gate: {graph: consensus}\n", "gate.graph", "needs a bootstrap section"),
 ])
 def test_bad_bootstrap_settings_are_refused(tmp_path: Path, text: str, key: str,
                                             words: str) -> None:
@@ -643,7 +643,7 @@ FULL: dict[str, Any] = {
     "score": {"name": "bdeu", "ess": 5.0},
     "search": {"method": "hill-climb", "start": "required", "seed": 3, "restarts": 1,
                "kick": 2, "budget": {"max_steps": 50, "max_seconds": 30.0}},
-    "gate": {"score_tolerance": 0.001, "max_edge_changes": 1, "on": "run"},
+    "gate": {"score_tolerance": 0.001, "max_edge_changes": 1, "graph": "run"},
 }
 
 
@@ -728,3 +728,15 @@ def test_a_broken_bootstrap_does_not_hide_the_rest(tmp_path: Path) -> None:
     keys = {p.key for p in caught.value.problems}
     assert {"bootstrap.replicates", "tiers.1.0"} <= keys
     assert isinstance(caught.value.partial_spec, Spec)  # the data can still be checked
+
+
+def test_the_old_gate_key_on_is_refused_naming_gate_graph(tmp_path: Path) -> None:
+    """`gate.on` was renamed `gate.graph` (a bare `on` is the boolean true in YAML 1.1,
+    PyYAML's default, so editors' schema checks failed on a valid spec): the old key is
+    bad input with a hint naming the new one, at its line."""
+    spec = tmp_path / "s.yaml"
+    spec.write_text("name: s\ndataset: {path: d.csv}\ngate:\n  on: consensus\n")
+    with pytest.raises(InputError) as caught:
+        load_spec(spec)
+    (problem,) = [p for p in caught.value.problems if p.key == "gate.on"]
+    assert problem.line == 4 and "renamed: use gate.graph" in problem.message

@@ -38,24 +38,24 @@ class GateSettings:
     score_tolerance: float = 1e-9
     max_edge_changes: int = 0
     allow_new_states: bool = False
-    on: str = "run"
+    graph: str = "run"
 
     @classmethod
     def from_block(cls, gate: Mapping[str, Any]) -> GateSettings:
         return cls(float(gate.get("score_tolerance", 1e-9)),
                    int(gate.get("max_edge_changes", 0)),
-                   bool(gate.get("allow_new_states", False)), str(gate.get("on", "run")))
+                   bool(gate.get("allow_new_states", False)), str(gate.get("graph", "run")))
 
     def as_dict(self) -> dict[str, Any]:
         return {"score_tolerance": self.score_tolerance,
                 "max_edge_changes": self.max_edge_changes,
-                "allow_new_states": self.allow_new_states, "on": self.on}
+                "allow_new_states": self.allow_new_states, "graph": self.graph}
 
 
 @dataclass(frozen=True)
 class GateContext:
     """What every rule sees. ``baseline`` and ``record`` are the graphs held against each
-    other: the bootstrap consensus networks under ``on: consensus`` (when both sides
+    other: the bootstrap consensus networks under ``graph: consensus`` (when both sides
     have one), else the runs themselves (``run_hashes`` are always the runs' graph
     hashes). ``baseline_record`` is the pinned run's record when its folder is there."""
 
@@ -109,22 +109,22 @@ def _status(failures: list[str]) -> str:
 
 def consensus_rule(ctx: GateContext) -> RuleResult:
     """Under ``on: consensus`` both sides need a bootstrap consensus network."""
-    if ctx.settings.on != "consensus":
+    if ctx.settings.graph != "consensus":
         return RuleResult("", SKIPPED)
     base, new = ctx.views
     failures = []
     if base is None:
-        failures.append(f"gate.on is consensus but baseline {ctx.baseline['run_id']} has no "
+        failures.append(f"gate.graph is consensus but baseline {ctx.baseline['run_id']} has no "
                         "bootstrap consensus network; pin a run learned with bootstrap")
     if new is None:
-        failures.append("gate.on is consensus but the new run has no bootstrap consensus "
+        failures.append("gate.graph is consensus but the new run has no bootstrap consensus "
                         "network")
     return RuleResult("", _status(failures), None if base is None else base["graph_sha256"],
                       None if new is None else new["graph_sha256"], failures=tuple(failures))
 
 
 def reproduce_rule(ctx: GateContext) -> RuleResult:
-    """Same inputs: the graph hash (run and, under ``on: consensus``, consensus) and the
+    """Same inputs: the graph hash (run and, under ``graph: consensus``, consensus) and the
     score must be identical; a difference is non-determinism."""
     if not ctx.same_inputs:
         return RuleResult("", SKIPPED)
@@ -134,7 +134,7 @@ def reproduce_rule(ctx: GateContext) -> RuleResult:
     score_differs = base["score"]["value"] != new["score"]["value"]
     failures, notes = [], []
     if graph_differs or run_differs or score_differs:
-        what = ("consensus graph" if graph_differs and ctx.settings.on == "consensus"
+        what = ("consensus graph" if graph_differs and ctx.settings.graph == "consensus"
                 else "graph" if graph_differs or run_differs else "score")
         failures.append("non-determinism: same inputs as the baseline (input hash "
                         f"{new['input_sha256'][:10]}) but a different {what}")
@@ -203,7 +203,7 @@ def gate_context(baseline: Mapping[str, Any], record: Mapping[str, Any],
     settings = GateSettings.from_block(gate)
     run_hashes = (str(baseline["graph_sha256"]), str(record["graph_sha256"]))
     views: tuple[Mapping[str, Any] | None, Mapping[str, Any] | None] = (None, None)
-    if settings.on == "consensus":
+    if settings.graph == "consensus":
         views = consensus_view(baseline), consensus_view(record)
         if views[0] is not None and views[1] is not None:
             baseline, record = views[0], views[1]
@@ -240,7 +240,7 @@ def evaluate_gate(baseline: Mapping[str, Any], record: Mapping[str, Any],
     Every rule of ``rules`` is applied (see the module docstring); the report lists each
     rule's result (``rules``), every failure and note, and every change either way.
 
-    With ``on: consensus`` the graphs held against each other (edge changes, the graph
+    With ``graph: consensus`` the graphs held against each other (edge changes, the graph
     hash of the determinism check) are the bootstrap consensus networks; the score is
     still the single run's. A side without a consensus network fails the check.
 

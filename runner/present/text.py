@@ -312,7 +312,7 @@ def check_table(report: Mapping[str, Any]) -> str:
         [f"score per row ({s['b']['name']})", f"{s['a']['per_row']:.6f}",
          f"{s['b']['per_row']:.6f}", _result(
              rules["score"], f"{s['relative_per_row']:+.3e} vs tol {g['score_tolerance']:g}")],
-        ["class edge changes" + (" (consensus)" if g.get("on") == "consensus" else ""), "",
+        ["class edge changes" + (" (consensus)" if g.get("graph") == "consensus" else ""), "",
          str(report["shd_cpdag"]),
          _result(rules["class-edges"], f"max {g['max_edge_changes']}")],
         ["columns and states", "", str(rules["columns"]["new"]),

@@ -365,8 +365,17 @@ def _length_message(bound: str, count: Any, kind: str) -> str:
     return f"must have {bound} {count} {noun}"
 
 
+#: keys that were renamed: the old name is refused with a hint naming the new one.
+RENAMED_KEYS: dict[tuple[str, ...], str] = {
+    ("gate", "on"): "gate.graph (YAML 1.1 tools read a bare `on` key as the boolean true, "
+                    "so editors' schema checks failed on it)",
+}
+
+
 def _unknown_key_message(path: tuple[str, ...]) -> str:
     name = path[-1] if path else "?"
+    if tuple(path) in RENAMED_KEYS:
+        return f"'{name}' was renamed: use {RENAMED_KEYS[tuple(path)]}"
     valid = _keys_at(path[:-1])
     message = f"unknown key '{name}'"
     close = difflib.get_close_matches(name, valid, n=1)

@@ -169,8 +169,9 @@ class GateSpec(_Section):
         0, description="Edges added + removed + reversed allowed (equivalence-class level).")
     allow_new_states: StrictBool = Field(
         False, description="Whether new or vanished states in the data are accepted.")
-    on: Literal["run", "consensus"] = Field(
-        "run", description="Compare the learned graph, or the bootstrap consensus graph.")
+    graph: Literal["run", "consensus"] = Field(
+        "run", description="Hold the learned graph against the baseline's, or the bootstrap "
+        "consensus networks (run | consensus; the key was `on` before).")
 
 
 class BootstrapSpec(_Section):

@@ -52,10 +52,10 @@ def _quoted(names: Sequence[str]) -> str:
 
 
 def _consensus_needs_bootstrap(spec: Spec, where: Where) -> list[Problem]:
-    return ([where.problem("gate.on", "gating on 'consensus' needs a bootstrap section "
+    return ([where.problem("gate.graph", "gating on 'consensus' needs a bootstrap section "
                         "(bootstrap: {replicates: N, seed: S, threshold: T}); add one or use "
                         "'run'", value="consensus")]
-         if spec.gate.on == "consensus" and where.raw.get("bootstrap") is None else [])
+         if spec.gate.graph == "consensus" and where.raw.get("bootstrap") is None else [])
 
 
 def _holdout_needs_pseudo_count(spec: Spec, where: Where) -> list[Problem]:
