@@ -43,11 +43,13 @@ from runner.store import (
     atomic_write_text,
     list_runs,
     read_baseline,
+    read_check_outcome,
     read_model,
     read_run,
     resolve_run,
     results_root,
     write_baseline,
+    write_check_outcome,
 )
 
 EXIT_CODES = """exit codes:
@@ -216,8 +218,7 @@ def _cmd_run(args: argparse.Namespace) -> int:
         results = run_specs(args.specs, root, engine, data_path=args.data, seed=args.seed,
                             reporter=Reporter(args.quiet))
     for result in results:
-        if not args.json:
-            _warn(result.warnings)
+        _warn(result.warnings)  # stderr, so also under --json
         twin = None
         if result.twin is not None:
             twin = {"run_id": result.twin["run_id"], "identical": result.twin_identical}
@@ -274,10 +275,10 @@ def _cmd_compare(args: argparse.Namespace) -> int:
                                        and not compare.score_delta(a, b)["comparable"]):
         try:
             rescored = {
-                "a_under_b": rescore(a, b["score"]["name"], b["score"].get("ess") or 1.0,
-                                             args.data, (b.get("spec") or {}).get("score")),
-                "b_under_a": rescore(b, a["score"]["name"], a["score"].get("ess") or 1.0,
-                                             args.data, (a.get("spec") or {}).get("score")),
+                "a_under_b": rescore(a, b["score"]["name"], b["score"].get("ess"), args.data,
+                                     (b.get("spec") or {}).get("score"), root),
+                "b_under_a": rescore(b, a["score"]["name"], a["score"].get("ess"), args.data,
+                                     (a.get("spec") or {}).get("score"), root),
             }
         except InputError as exc:
             reason = "; ".join(p.format() for p in exc.problems)
@@ -309,6 +310,18 @@ def _cmd_pin(args: argparse.Namespace) -> int:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
+    """``check``; bad input (exit 2) still writes ``--junit FILE``, with an error case."""
+    try:
+        return _check(args)
+    except InputError as exc:
+        if args.junit:
+            names = [Path(s).stem for s in args.specs]
+            atomic_write_text(Path(args.junit), compare.junit_error_xml(
+                names, [p.format() for p in exc.problems]))
+        raise
+
+
+def _check(args: argparse.Namespace) -> int:
     root = results_root(args.results)
     if args.data is not None and len(args.specs) > 1:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
@@ -321,8 +334,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
                             reuse_bins=True,
                             reporter=Reporter(args.quiet))
     for result in results:
-        if not args.json:
-            _warn(result.warnings)
+        _warn(result.warnings)  # stderr, so also under --json
         record = result.record
         baseline = read_baseline(root, record["spec_name"])
         if baseline is None:
@@ -335,6 +347,9 @@ def _cmd_check(args: argparse.Namespace) -> int:
             report = compare.evaluate_gate(baseline, record, record["spec"]["gate"],
                                            pinned_record)
         report["folder"] = str(result.folder)
+        write_check_outcome(result.folder, record, baseline, report["ok"],
+                            report.get("verdict") or report["status"], report["failures"],
+                            datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"))
         seconds[record["spec_name"]] = record["seconds"]["total"]
         reports.append(report)
         texts.append(check_table(report))
@@ -364,15 +379,19 @@ def _cmd_history(args: argparse.Namespace) -> int:
         raise InputError(Problem(str(root), f"no stored runs of spec {name!r}", key="SPEC"))
     baseline = read_baseline(root, name)
     records: list[dict[str, Any] | None] = []
+    checks: list[dict[str, Any] | None] = []
     for folder in folders:
+        record = check = None
         try:
-            records.append(read_run(folder))
-        except InputError as exc:
+            record = read_run(folder)
+            check = read_check_outcome(folder)
+        except InputError as exc:  # listed as refused (a record) or as a plain run
             _warn([Problem(p.file, p.message, p.line, p.key, severity="warning")
                    for p in exc.problems])
-            records.append(None)
+        records.append(record)
+        checks.append(check)
     rows = compare.history_rows(records, [f.name for f in folders],
-                                None if baseline is None else baseline["run_id"])
+                                None if baseline is None else baseline["run_id"], checks)
     if args.json:
         print(json.dumps({"spec": name, "runs": rows}, indent=2, sort_keys=True))
         return 0

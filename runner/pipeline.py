@@ -175,11 +175,28 @@ class StoredInputs:
         return spec_scorer(self.normal, self.learning)
 
 
-def record_data_file(record: Mapping[str, Any]) -> Path:
-    """Where a record's data file is: ``data.path`` is relative to the spec file when it
-    is the spec's own ``dataset.path``, else (``--data``) to the folder the run was
-    started in."""
+def stored_path(path: str | Path, results: Path) -> str:
+    """How a record stores a file's path: relative to the project folder (the results
+    folder's parent) when the file lies inside it, else the file name alone, so no
+    absolute path (a user name, a CI workspace) reaches a record and the same project
+    gives the same record wherever it is checked out. Always with ``/``."""
+    project = results.resolve().parent
+    resolved = Path(path).resolve()
+    try:
+        return resolved.relative_to(project).as_posix()
+    except ValueError:
+        return resolved.name
+
+
+def record_data_file(record: Mapping[str, Any], results: Path | None = None) -> Path:
+    """Where a record's data file is. From format 2 on, ``data.path`` is relative to the
+    project folder (the parent of ``results``, default ``./results``; a file that lay
+    outside it is stored by name only, so it must be named with ``--data``). Older records:
+    relative to the spec file when it is the spec's own ``dataset.path``, else (``--data``)
+    to the folder the run was started in."""
     path = Path(record["data"]["path"])
+    if record.get("format_version", 0) >= 2 and not path.is_absolute():
+        return (results or Path("results")).resolve().parent / path
     if path.is_absolute():
         return path
     spec_path = record.get("spec_path")
@@ -190,7 +207,8 @@ def record_data_file(record: Mapping[str, Any]) -> Path:
 
 
 def prepare_stored(record: Mapping[str, Any], data_path: str | Path | None = None,
-                   score: Mapping[str, Any] | None = None) -> StoredInputs:
+                   score: Mapping[str, Any] | None = None,
+                   results: Path | None = None) -> StoredInputs:
     """A stored run's data and learning rows, prepared by the pipeline's own steps from
     the record's normalised spec (``score`` replaces its score block).
 
@@ -201,7 +219,7 @@ def prepare_stored(record: Mapping[str, Any], data_path: str | Path | None = Non
     when the file changed or lacks the graph's variables.
     """
     explicit = data_path is not None
-    path = Path(data_path) if data_path is not None else record_data_file(record)
+    path = Path(data_path) if data_path is not None else record_data_file(record, results)
     spec = dict(record.get("spec") or {})
     normal: dict[str, Any] = {**spec, "dataset": dict(spec.get("dataset") or {}),
                               "score": dict(score if score is not None
@@ -550,6 +568,11 @@ def store_learned(prepared: Prepared, record: dict[str, Any], trace: str,
     """Store a learned record under a fresh run id (its fitted model beside it); report an
     earlier twin."""
     model = record.pop("_model")
+    spec = prepared.spec
+    data_file = (spec.dataset_path() if prepared.data_display == spec.dataset.path
+                 else Path(prepared.data_display))
+    record["spec_path"] = stored_path(prepared.spec_display, results)
+    record["data"] = {**record["data"], "path": stored_path(data_file, results)}
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     record["run_id"] = f"{stamp}-{record['input_sha256'][:10]}"
     twin = find_twin(results, record["spec_name"], record["input_sha256"], exclude="")

@@ -249,13 +249,14 @@ def _runs(demo: Path) -> list[Path]:
 def test_rescore_reproduces_the_stored_score_and_refuses_changed_data(demo: Path,
                                                                       tmp_path: Path) -> None:
     rec = read_run(next(p for p in _runs(demo) if "kiln-line" in str(p)))
-    same = rescore(rec, "bic")
+    results = demo / "results"
+    same = rescore(rec, "bic", results=results)
     assert same["value"] == rec["score"]["value"]
     changed = tmp_path / "kiln-line.csv"
     changed.write_bytes((demo / "datasets" / "kiln-line.csv").read_bytes() + b"")
     moved = {**rec, "data": {**rec["data"], "sha256": "0" * 64}}
     with pytest.raises(InputError, match="name the file with --data"):
-        rescore(moved, "bic")
+        rescore(moved, "bic", results=results)
     explicit = rescore(moved, "k2", data_path=changed)
     assert explicit["data_sha256"] == rec["data"]["sha256"] and explicit["score"] == "k2"
 
@@ -285,7 +286,7 @@ def test_rescoring_a_run_under_its_own_score_gives_its_stored_score_exactly(
                     "evaluation: {holdout: 0.25, seed: 3}\n", encoding="utf-8")
     rec = read_run(run_spec(spec, tmp_path / "results").folder)
     assert rec["edges"], "the case should learn some edges"
-    again = rescore(rec, rec["score"]["name"])
+    again = rescore(rec, rec["score"]["name"], results=tmp_path / "results")
     assert again["value"] == rec["score"]["value"]
     assert again["rows"] == rec["data"]["rows_learned"]
     assert again["data_sha256"] == rec["data"]["sha256"]

@@ -148,7 +148,11 @@ def test_rescoring_a_held_out_run_uses_its_learning_rows(
     # both are computed on the learning rows of the same seeded split.
     from runner.compare.rescore import rescore
 
+    # The data lay outside the project folder, so the record holds its name only: the
+    # rescore names the file (as `compare --data` would).
     _, record, _ = stored
-    again = rescore(record, record["score"]["name"])
+    assert record["data"]["path"] == "kiln-line.csv"
+    again = rescore(record, record["score"]["name"],
+                    data_path=Path(__file__).resolve().parents[1] / "datasets" / "kiln-line.csv")
     assert again["rows"] == record["data"]["rows_learned"]
     assert again["value"] == pytest.approx(record["score"]["value"], rel=1e-12)

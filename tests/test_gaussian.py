@@ -381,10 +381,10 @@ def test_rescoring_a_gaussian_run_under_bge_uses_the_other_runs_prior(tmp_path: 
         records["bge" if "bge" in score else "bic"] = run_spec(spec, results).record
     bic, bge = records["bic"], records["bge"]
     assert bic["edges"] == bge["edges"]
-    again = rescore(bic, "bge", settings=bge["spec"]["score"])
+    again = rescore(bic, "bge", settings=bge["spec"]["score"], results=results)
     assert again["value"] == pytest.approx(bge["score"]["value"], rel=1e-12)
-    assert rescore(bge, "gaussian-bic")["value"] == pytest.approx(bic["score"]["value"],
-                                                                  rel=1e-12)
+    back = rescore(bge, "gaussian-bic", results=results)
+    assert back["value"] == pytest.approx(bic["score"]["value"], rel=1e-12)
 
 
 def test_statistics_are_computed_once_then_families_use_submatrices(

@@ -217,10 +217,32 @@ def test_a_version_0_record_and_baseline_are_still_read(stored: dict[str, Any], 
     old = _as_version_0(baseline)
     assert read_baseline(root, "line-boot-eval") == old
     assert main(["show", run.name, "--results", str(root)]) == 0
-    assert run.name in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert run.name in out and "record     format 0 (legacy" in out
     # Version 0 still needs what readers always needed.
     _break(run / "run.json", lambda d: d["score"].update(value="-1.5"))
     with pytest.raises(InputError, match=r"score\.value: input should be a valid number"):
+        read_run(run)
+
+
+def test_a_version_1_record_is_read_and_shown_as_legacy(stored: dict[str, Any],
+                                                        tmp_path: Path,
+                                                        capsys: pytest.CaptureFixture[str]
+                                                        ) -> None:
+    """Format 1 (sealed, before the chain): read with its seal checked, shown as legacy."""
+    root = tmp_path / "results"
+    run = _copy_run(stored, "kiln-line", root)
+    doc = json.loads((run / "run.json").read_text())
+    doc.pop("previous_record_sha256")
+    doc.pop("signature", None)
+    doc["format_version"] = 1
+    doc["record_sha256"] = record_sha256(doc)
+    (run / "run.json").write_text(dump_json(doc))
+    assert read_run(run) == doc
+    assert main(["show", run.name, "--results", str(root)]) == 0
+    assert "record     format 1 (legacy: sealed, not chained)" in capsys.readouterr().out
+    _break(run / "run.json", lambda d: d["score"].update(value=d["score"]["value"] + 1))
+    with pytest.raises(InputError, match="record_sha256"):
         read_run(run)
 
 

@@ -33,13 +33,13 @@ from runner.compare.gate import (
     missing_baseline_report,
 )
 from runner.compare.history import history_rows
-from runner.compare.junit import junit_xml, report_text
+from runner.compare.junit import junit_error_xml, junit_xml, report_text
 
 __all__ = [
     "INPUT_FIELDS", "RULES", "GateContext", "GateSettings", "Rule", "RuleResult",
     "column_changes", "compare_records", "cpdag_changes", "describe_columns",
     "describe_edges", "edge_changes", "evaluate_gate", "field_at", "graph_diff",
-    "history_rows", "junit_xml", "missing_baseline_report", "needs_rescore",
+    "history_rows", "junit_error_xml", "junit_xml", "missing_baseline_report", "needs_rescore",
     "record_inputs", "report_text", "score_delta", "skeleton_precision_recall",
     "verdict",
 ]

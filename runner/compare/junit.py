@@ -38,3 +38,23 @@ def junit_xml(reports: Sequence[Mapping[str, Any]], seconds: Mapping[str, float]
         out.text = text
     ET.indent(suites)
     return ET.tostring(suites, encoding="unicode", xml_declaration=True) + "\n"
+
+
+def junit_error_xml(specs: Sequence[str], problems: Sequence[str]) -> str:
+    """The JUnit XML of a check that could not run (bad input, exit 2): one test case per
+    spec given, each with an ``error`` element listing every problem, so a CI page shows
+    why instead of no report at all."""
+    names = list(specs) or ["dagmill check"]
+    suites = ET.Element("testsuites", name="dagmill check", tests=str(len(names)),
+                        failures="0", errors=str(len(names)))
+    suite = ET.SubElement(suites, "testsuite", name="dagmill check", tests=str(len(names)),
+                          failures="0", errors=str(len(names)))
+    text = "\n".join(problems)
+    for name in names:
+        case = ET.SubElement(suite, "testcase", classname="dagmill.check", name=name,
+                             time="0.000")
+        error = ET.SubElement(case, "error", message=problems[0] if problems else "bad input",
+                              type="bad-input")
+        error.text = text
+    ET.indent(suites)
+    return ET.tostring(suites, encoding="unicode", xml_declaration=True) + "\n"

@@ -114,6 +114,19 @@ def confidence_lines(record: Mapping[str, Any]) -> list[str]:
     return out
 
 
+def record_format(record: Mapping[str, Any]) -> str:
+    """How a record is sealed: format 2 chained (and signed), or legacy."""
+    version = record.get("format_version", 0)
+    if version == 0:
+        return "format 0 (legacy: written before records had a format; not sealed)"
+    if version == 1:
+        return "format 1 (legacy: sealed, not chained)"
+    signed = "signed" if record.get("signature") else "not signed"
+    first = record.get("previous_record_sha256") is None
+    return (f"format {version}, sealed {str(record.get('record_sha256', ''))[:16]}, "
+            f"{'first of its chain' if first else 'chained'}, {signed}")
+
+
 def summary_lines(record: Mapping[str, Any], folder: Path | None = None) -> list[str]:
     """A run's summary (``show``): inputs and hashes, score, search, edges, timings, the
     caution."""
@@ -134,6 +147,7 @@ def summary_lines(record: Mapping[str, Any], folder: Path | None = None) -> list
         f"seconds    search {record['seconds']['search']:.3f}  "
         f"total {record['seconds']['total']:.3f}",
         f"graph hash {record['graph_sha256']}",
+        f"record     {record_format(record)}",
     ]
     if search.get("phases"):
         lines.append("phases     " + ", ".join(f"{p['phase']} {p['steps']}"
@@ -182,13 +196,22 @@ def run_table(rows: Sequence[Mapping[str, Any]]) -> str:
 def history_table(rows: Sequence[Mapping[str, Any]]) -> str:
     """``history``'s table from :func:`runner.compare.history_rows`."""
     table = [["*" if r["baseline"] else "", r.get("time") or "-", r["run_id"],
+              _learned_by(r), "" if r["refused"] else r["data_file"],
               "REFUSED" if r["refused"] else r["data_sha256"],
               "" if r["refused"] else str(r["rows"]), r.get("code_version", ""),
               "" if r["refused"] else f"{r['score']} {r['per_row']:.6f}",
               "" if r["refused"] else str(r["edges"]),
               "-" if r.get("shd_previous") is None else str(r["shd_previous"])] for r in rows]
-    return render_table(["base", "time", "run", "data", "rows", "code", "score/row", "edges",
-                         "shd prev"], table)
+    return render_table(["base", "time", "run", "by", "data file", "data", "rows", "code",
+                         "score/row", "edges", "shd prev"], table)
+
+
+def _learned_by(row: Mapping[str, Any]) -> str:
+    """``run``, or ``check`` with its verdict (``check PASS``, ``check FAIL``)."""
+    check = row.get("check")
+    if not check:
+        return "" if row["refused"] else "run"
+    return f"check {'PASS' if check['ok'] else 'FAIL'}"
 
 
 # --------------------------------------------------------------------------- compare
