@@ -47,6 +47,7 @@ IMPLEMENTED_KINDS = ("discrete", "continuous")
 OPTIONAL_SECTIONS = ("bootstrap", "fit", "evaluation")  # a broken one is dropped whole
 
 NAME_PATTERN = r"^[a-z0-9]+(-[a-z0-9]+)*$"
+NAME_MAX = 100  # the spec name is a folder name; 255 bytes is the common file-system limit
 SHA256_PATTERN = r"^[0-9a-f]{64}$"
 SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
 TIER_NAME_LENGTH = 40
@@ -202,8 +203,9 @@ class EvaluationSpec(_Section):
 class Spec(_Section):
     """A dagmill analysis spec: data, constraints, score, search and gate."""
 
-    name: Annotated[StrictStr, Field(pattern=NAME_PATTERN)] = Field(
-        description="Names the results folder: lowercase letters, digits and '-'.")
+    name: Annotated[StrictStr, Field(pattern=NAME_PATTERN, max_length=NAME_MAX)] = Field(
+        description="Names the results folder: lowercase letters, digits and '-', at most "
+        "100 characters (a folder name; file systems allow 255 bytes).")
     dataset: DatasetSpec = Field(description="Where the data is and how to read it.")
     tiers: list[Annotated[list[Variable], Field(min_length=1)]] = Field(
         default_factory=list, description="Ordered groups of variables: edges may go from an "
