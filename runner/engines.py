@@ -26,10 +26,14 @@ does not answer within :data:`CONNECT_SECONDS`.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import ctypes
 import multiprocessing
 import os
 import re
+import signal
+import sys
 import threading
+import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, TypeVar
@@ -170,7 +174,35 @@ class InProcess(Engine):
 _WORKER_STATE: dict[str, Any] = {}
 
 
-def _install(fn: Callable[..., Any], shared: Any) -> None:
+WATCH_SECONDS = 0.5  # how often a worker looks whether the process that started it lives
+
+
+def die_with_parent(parent: int) -> None:
+    """Make this worker process end when ``parent`` (the command's process) does, even
+    when the parent is killed with SIGKILL and cannot shut its pool down: on Linux the
+    kernel's parent-death signal (prctl PR_SET_PDEATHSIG, SIGKILL); everywhere a daemon
+    thread that watches the parent's pid and exits the process when it is gone."""
+    if sys.platform.startswith("linux"):
+        try:
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+        except (OSError, AttributeError):  # pragma: no cover - no prctl: the thread does
+            pass
+    if os.getppid() != parent:  # the parent died before the signal was armed
+        os._exit(1)
+
+    def watch() -> None:
+        while True:
+            time.sleep(WATCH_SECONDS)
+            if os.getppid() != parent:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="dagmill-parent-watch", daemon=True).start()
+
+
+def _install(fn: Callable[..., Any], shared: Any, parent: int | None = None) -> None:
+    if parent is not None:
+        die_with_parent(parent)
     _WORKER_STATE["fn"], _WORKER_STATE["shared"] = fn, shared
 
 
@@ -201,7 +233,7 @@ class LocalPool(Engine):
         results: list[Any] = [None] * len(items)
         with cf.ProcessPoolExecutor(max_workers=min(self.workers, len(items)),
                                     mp_context=context, initializer=_install,
-                                    initargs=(fn, shared)) as pool:
+                                    initargs=(fn, shared, os.getpid())) as pool:
             futures = {pool.submit(_call, item): k for k, item in enumerate(items)}
             try:
                 for future in cf.as_completed(futures):
@@ -302,10 +334,13 @@ class DaskEngine(Engine):
 
         from distributed import Client, LocalCluster
 
+        from runner.worker_watch import DieWithParent
+
         self._cluster = LocalCluster(n_workers=self._local_workers, threads_per_worker=1,
                                      processes=True, host="127.0.0.1",
                                      dashboard_address=None, silence_logs=logging.ERROR)
         self.client = Client(self._cluster)
+        self.client.register_plugin(DieWithParent(os.getpid()))
         return self.client
 
     def close(self) -> None:

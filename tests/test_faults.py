@@ -163,3 +163,64 @@ def test_run_folders_take_the_umask_mode(project: Path, cli: CliCall) -> None:
     (run,) = (project / "results" / "kiln-line" / "runs").iterdir()
     assert run.stat().st_mode & 0o777 == 0o755
     assert (run / "run.json").stat().st_mode & 0o777 == 0o644
+
+
+def _children(pid: int) -> list[int]:
+    """The live processes whose parent is ``pid`` (from /proc)."""
+    out = []
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            stat = (entry / "stat").read_text()
+        except OSError:
+            continue
+        fields = stat[stat.rindex(")") + 2:].split()
+        if int(fields[1]) == pid and fields[0] != "Z":
+            out.append(int(entry.name))
+    return out
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = (Path("/proc") / str(pid) / "stat").read_text()
+    except OSError:
+        return False
+    return state[state.rindex(")") + 2:].split()[0] != "Z"
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not Path("/proc").is_dir(), reason="reads the process table in /proc")
+@pytest.mark.parametrize("engine", ["local", "dask-local"])
+def test_killing_a_run_kills_its_workers(project: Path, engine: str) -> None:
+    """kill -9 of a bootstrap run on two workers: its worker processes end too (checked in
+    the process table), nothing of it is stored, and every stored run still reads."""
+    import subprocess
+    import sys
+    import time
+
+    spec = project / "specs" / "kiln-line.yaml"
+    spec.write_text(spec.read_text() + "bootstrap: {replicates: 400, seed: 1}\n")
+    env = {k: v for k, v in os.environ.items() if not k.startswith("DAGMILL_")}
+    env["PYTHONPATH"] = str(REPO)
+    proc = subprocess.Popen([sys.executable, "-m", "runner", "run", str(spec), "--workers",
+                             "2", "--engine", engine, "--quiet"], cwd=project, env=env,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    workers: list[int] = []
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and proc.poll() is None:
+        workers = _children(proc.pid)
+        if len(workers) >= 2:
+            break
+        time.sleep(0.2)
+    assert len(workers) >= 2, "the run did not start its workers"
+    time.sleep(1.0)
+    workers = sorted(set(workers) | set(_children(proc.pid)))
+    proc.kill()
+    proc.wait()
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline and any(_alive(w) for w in workers):
+        time.sleep(0.2)
+    assert not any(_alive(w) for w in workers), "workers outlived the killed run"
+    for run in (project / "results").glob("*/runs/*") if (project / "results").exists() else []:
+        store.read_run(run)
