@@ -4,9 +4,11 @@ Usage::
 
     python -m benchmarks [--cases alarm-10k,asia-10k] [--repeats 3] [--out benchmarks]
     python -m benchmarks --quality [--networks asia,alarm] [--sample-seeds 13] ...
+    python -m benchmarks --budget [--budget-columns 300] [--budget-label after] ...
 
 ``--quality`` runs the search-quality suite (:mod:`benchmarks.quality`) instead of the
-speed suite and writes ``RESULTS-quality.md`` and ``RESULTS-quality.json``.
+speed suite and writes ``RESULTS-quality.md`` and ``RESULTS-quality.json``; ``--budget``
+the budget-keeping case on wide data (:mod:`benchmarks.budget`: ``RESULTS-budget.md``).
 
 Data are sampled once per case with pgmpy's sampler and a fixed seed, cached as CSV
 under a temporary folder (never committed). Each case is timed ``--repeats`` times for
@@ -207,7 +209,7 @@ def machine_line() -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    from benchmarks import quality  # imports this module: load it only once it is complete
+    from benchmarks import budget, quality  # they import this module: load them once it is complete
 
     parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__)
     parser.add_argument("--cases", default=DEFAULT_CASES)
@@ -217,10 +219,15 @@ def main(argv: list[str] | None = None) -> int:
                         help="ALARM 10k samples for the score condition (0 skips it)")
     parser.add_argument("--quality", action="store_true",
                         help="run the search-quality suite instead of the speed suite")
+    parser.add_argument("--budget", action="store_true",
+                        help="run the budget-keeping case instead of the speed suite")
     quality.add_arguments(parser)
+    budget.add_arguments(parser)
     args = parser.parse_args(argv)
     if args.quality:
         return quality.run(args)
+    if args.budget:
+        return budget.run(args)
     warnings.filterwarnings("ignore")
     rows = []
     for name in args.cases.split(","):

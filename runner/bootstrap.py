@@ -15,6 +15,15 @@ that child spawns two more, one for drawing the rows and one for the search's ow
 randomness (tie-breaks, restarts). A replicate is therefore a pure function of the data,
 the spec and ``k``, whichever engine or worker runs it.
 
+Budget: ``bootstrap.budget.max_seconds`` bounds all replicates together. The deadline is
+fixed once, as a wall-clock time (``time.time()``), when the replicates start, and goes
+to every replicate with the job, so replicates running in parallel (a process pool, Dask
+workers on this machine) all stop by it: each replicate's search gets the time left
+until the deadline (or its own ``search.budget.max_seconds`` when that is less). A
+replicate stopped by a limit counts as not converged; a replicate that starts after the
+deadline stops before its first move (its graph is the start graph). Time-limited
+replicates depend on the machine's speed, as any ``max_seconds`` stop does.
+
 Consensus network (the documented rule): a node pair enters when it is adjacent in at
 least ``threshold`` of the replicates. Pairs are taken required edges first, then by
 adjacency share (high first), then by the larger directed share, then by name. Each is
@@ -49,10 +58,13 @@ RULE = ("pairs adjacent in at least `threshold` of the replicates, required edge
 @dataclass(frozen=True)
 class ReplicateJob:
     """What every replicate needs, sent to each worker once: the prepared spec (with its
-    data) and the function that learns a graph on a resampled dataset."""
+    data), the function that learns a graph on a resampled dataset (given the deadline)
+    and the wall-clock deadline (``time.time()``) of all replicates, or None."""
 
     prepared: Any  # runner.pipeline.Prepared
-    search_on: Callable[[Any, Any, np.random.Generator], tuple[ParentSets, bool]]
+    search_on: Callable[[Any, Any, np.random.Generator, float | None],
+                        tuple[ParentSets, bool]]
+    deadline: float | None = None
 
 
 @dataclass(frozen=True)
@@ -80,7 +92,7 @@ def run_replicate(job: ReplicateJob, item: tuple[int, np.random.SeedSequence]) -
     draw, search = (np.random.default_rng(s) for s in seed.spawn(2))
     dataset = job.prepared.dataset
     resampled = dataset.take_rows(resample_rows(dataset.rows, draw))
-    parent_sets, converged = job.search_on(job.prepared, resampled, search)
+    parent_sets, converged = job.search_on(job.prepared, resampled, search, job.deadline)
     return Replicate(index, tuple(tuple(sorted(int(p) for p in ps)) for ps in parent_sets),
                      bool(converged))
 

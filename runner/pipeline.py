@@ -33,6 +33,7 @@ from runner.registry import RestartParams
 from runner.scores import FamilyScorer
 from runner.scores.gaussian import GaussianScorer, GaussianStatistics
 from runner.search import Budget, MoveEngine, RunSummary, SearchOutcome, local_search, with_restarts
+from runner.search.budget import BUDGET_REASONS
 from runner.search.parent_sets import SearchRefused
 from runner.search.whole import PlanContext, SearchTask
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
@@ -348,8 +349,8 @@ def run_search(
         return found.outcome, [], found.parameters, found.extra
     method = local_search(entry.name, rng, **params.effective())
     again = RestartParams.pick(spec.search.model_dump()).effective()
-    outcome, runs = with_restarts(method, lambda ps: MoveEngine(scorer, constraints, ps), start,
-                                  budget, rng, again["restarts"], again["kick"], tick=tick)
+    outcome, runs = with_restarts(method, lambda ps: MoveEngine(scorer, constraints, ps, budget),
+                                  start, budget, rng, again["restarts"], again["kick"], tick=tick)
     parameters: dict[str, Any] = {"restarts": again["restarts"]}
     if again["restarts"]:
         parameters["kick"] = again["kick"]
@@ -357,19 +358,25 @@ def run_search(
     return outcome, runs, parameters, {"proven_optimal": False}
 
 
-def spec_budget(spec: Spec) -> Budget:
-    """A fresh budget from the spec's ``search.budget``."""
+def spec_budget(spec: Spec, deadline: float | None = None) -> Budget:
+    """A fresh budget from the spec's ``search.budget``; with ``deadline`` (a wall-clock
+    ``time.time()``), at most the seconds left until it."""
     b = spec.search.budget
-    return Budget(b.max_steps, b.max_evaluations, b.max_seconds)
+    seconds = b.max_seconds
+    if deadline is not None:
+        left = max(0.0, deadline - time.time())
+        seconds = left if seconds is None else min(seconds, left)
+    return Budget(b.max_steps, b.max_evaluations, seconds)
 
 
-def search_on(prepared: Prepared, dataset: Dataset,
-              rng: np.random.Generator) -> tuple[list[tuple[int, ...]], bool]:
+def search_on(prepared: Prepared, dataset: Dataset, rng: np.random.Generator,
+              deadline: float | None = None) -> tuple[list[tuple[int, ...]], bool]:
     """The spec's score and search on ``dataset`` (the prepared columns, other rows: a
-    bootstrap replicate); the learned parent sets and whether the search converged."""
+    bootstrap replicate) before ``deadline``; the learned parent sets and whether the
+    search converged."""
     spec = prepared.spec
     scorer = spec_scorer(normalised_spec(spec), dataset)
-    outcome, *_ = run_search(prepared, scorer, spec_budget(spec), rng)
+    outcome, *_ = run_search(prepared, scorer, spec_budget(spec, deadline), rng)
     return [tuple(ps) for ps in outcome.parent_sets], outcome.converged
 
 
@@ -385,14 +392,17 @@ def _search_bar(prepared: Prepared, reporter: Reporter) -> Progress | None:
 def learn_bootstrap(prepared: Prepared, engine: Engine | None = None,
                     reporter: Reporter = SILENT) -> dict[str, Any] | None:
     """The record's ``bootstrap`` section (None without one in the spec): the replicates
-    run as units on ``engine`` (default: in this process), gathered in index order."""
+    run as units on ``engine`` (default: in this process), gathered in index order, all
+    by the deadline ``bootstrap.budget.max_seconds`` from now when it is set."""
     boot = prepared.spec.bootstrap
     if boot is None:
         return None
     items = list(enumerate(replicate_seeds(boot.seed, boot.replicates)))
+    total = boot.budget.max_seconds if boot.budget is not None else None
+    deadline = None if total is None else time.time() + total
     with reporter.bar(f"bootstrap {prepared.spec.name}", len(items)) as bar:
-        results = (engine or InProcess()).map(run_replicate, ReplicateJob(prepared, search_on),
-                                              items, bar)
+        results = (engine or InProcess()).map(
+            run_replicate, ReplicateJob(prepared, search_on, deadline), items, bar)
     return bootstrap_block(prepared.dataset.names, results, boot.seed, boot.threshold,
                            prepared.constraints)
 
@@ -542,6 +552,9 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     if bootstrap is not None:
         record["bootstrap"] = bootstrap
         record["seconds"]["bootstrap"] = round(boot_seconds, 6)
+    empty = nothing_learned(prepared, record)
+    if empty is not None:
+        record["warnings"].append(empty.format())
     trace = trace_csv(
         (r.step, r.move, names[r.source], names[r.target], r.delta, r.score)
         for r in outcome.trace
@@ -563,10 +576,32 @@ def run_spec(spec_path: str | Path, results: Path, data_path: str | Path | None 
     return store_learned(prepared, record, trace, results)
 
 
+def nothing_learned(prepared: Prepared, record: Mapping[str, Any]) -> Problem | None:
+    """The warning of a run whose budget ran out before its search changed the start graph
+    (the required edges): the run is stored, but it learned nothing; else None."""
+    search = record["search"]
+    reason = search["stop_reason"]
+    if reason not in BUDGET_REASONS:
+        return None
+    names = prepared.dataset.names
+    start = sorted([names[i], names[j]] for i, j in prepared.constraints.required)
+    if sorted(list(e) for e in record["edges"]) != start:
+        return None
+    limit = search["budget"][reason]
+    key = f"search.budget.{reason}"
+    before = "the first move" if search["steps"] == 0 and search["method"] not in (
+        "order", "exact") else "the search finished"
+    spec = prepared.spec
+    return Problem(prepared.spec_display, (
+        f"{spec.name}: the budget ran out before {before} ({reason} {limit:g}): the stored "
+        f"graph is the start graph; raise {key}"), line=spec.line_of(key), key=key,
+        severity="warning")
+
+
 def store_learned(prepared: Prepared, record: dict[str, Any], trace: str,
                   results: Path) -> RunResult:
     """Store a learned record under a fresh run id (its fitted model beside it); report an
-    earlier twin."""
+    earlier twin. A run that learned nothing (:func:`nothing_learned`) adds its warning."""
     model = record.pop("_model")
     spec = prepared.spec
     data_file = (spec.dataset_path() if prepared.data_display == spec.dataset.path
@@ -578,4 +613,6 @@ def store_learned(prepared: Prepared, record: dict[str, Any], trace: str,
     twin = find_twin(results, record["spec_name"], record["input_sha256"], exclude="")
     run_id, folder = write_run(results, record, trace, model)
     record["run_id"] = run_id
-    return RunResult(run_id, folder, record, twin, prepared.warnings)
+    empty = nothing_learned(prepared, record)
+    return RunResult(run_id, folder, record, twin,
+                     [*prepared.warnings, *([] if empty is None else [empty])])

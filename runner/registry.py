@@ -344,7 +344,8 @@ METHODS: tuple[MethodEntry, ...] = (
     MethodEntry(
         "exact", "whole", ExactParams, Target("runner.search.whole:run_exact"),
         "the globally optimal DAG under the constraints, by dynamic programming over "
-        "subsets; refused above `max_variables`, with the memory it would need",
+        "subsets; refused above `max_variables` or when its tables would not fit in the "
+        "memory available",
         "Silander & Myllymäki 2006", plan=Target("runner.search.whole:plan_exact")),
 )
 

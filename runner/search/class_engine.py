@@ -29,6 +29,10 @@ operator on ``(A, B)`` only pairs whose target's parents or neighbours changed, 
 target has both ``A`` and ``B`` as neighbours, or whose source is ``A`` or ``B`` are
 evaluated again; the semi-directed path condition, which is global, is checked when an
 operator reaches the front of the queue.
+
+Budget: the queue's first fill evaluates every pair; given a budget it checks it every few
+pairs (:class:`~runner.search.budget.FillCheck`) and, when it runs out, stops with the
+reason in ``stopped``: the phase then ends before applying any operator.
 """
 
 from __future__ import annotations
@@ -41,6 +45,7 @@ import numpy as np
 
 from runner.constraints import Constraints
 from runner.scores.protocol import Scorer
+from runner.search.budget import Budget, FillCheck
 from runner.search.engine import RELATIVE_TOLERANCE, BoundEngine
 from runner.search.pdag import (
     Knowledge,
@@ -235,15 +240,22 @@ class OperatorQueue:
 
     engine: ClassEngine
     kind: str
+    budget: Budget | None = None
     heap: list[tuple[float, int, int, int, int]] = field(default_factory=list)
     version: dict[tuple[int, int], int] = field(default_factory=dict)
     refused: dict[tuple[int, int], set[int]] = field(default_factory=dict)
     rechecked: set[tuple[int, int]] = field(default_factory=set)
+    stopped: str | None = None  # the budget's stop reason when the first fill ran out
 
     def __post_init__(self) -> None:
         tolerance = self.engine.tolerance()
+        check = FillCheck(self.budget, every=1)  # a pair scores several families
+        scorer = self.engine.scorer
         for y in range(self.engine.n):
             for x in self.sources(y):
+                if check(scorer.evaluations) is not None:
+                    self.stopped = check.stopped
+                    return
                 self.evaluate(x, y, tolerance=tolerance)
 
     def sources(self, y: int) -> Iterator[int]:

@@ -18,6 +18,12 @@ or more edges) is kept up to date: adding i -> j makes a cycle exactly when
 than the edge itself. An addition updates the matrix by one outer product, O(n^2); a
 deletion recomputes it in topological order, O(n (n + e)) with vectorised rows.
 
+Budget. Filling the first delta table scores n (n - 1) families, which on wide data
+takes far longer than a step. Given a budget, the fill checks it every few families
+(:class:`~runner.search.budget.FillCheck`); when it runs out, the engine keeps the start
+graph with its family scores, leaves the unfilled deltas out and sets ``stopped`` to the
+stop reason: the searches then stop before choosing any move.
+
 Ties. A search compares only these values: the deltas in ``toggle`` (one subtraction of
 two family scores each; a reversal's delta adds two of them), and the tolerance
 ``RELATIVE_TOLERANCE * max(1, |score|)``, where ``score`` is the exactly rounded sum of
@@ -41,6 +47,7 @@ from runner.constraints import Constraints
 from runner.graph import topological_order
 from runner.scores.cache import parent_mask
 from runner.scores.protocol import Scorer
+from runner.search.budget import Budget, FillCheck
 
 KINDS = ("add", "delete", "reverse")
 
@@ -71,13 +78,19 @@ class BoundEngine:
 
 
 class MoveEngine(BoundEngine):
-    """A DAG under constraints with the score change of every move kept up to date."""
+    """A DAG under constraints with the score change of every move kept up to date.
+
+    With ``budget``, filling the first delta table stops when the budget runs out;
+    ``stopped`` then holds the stop reason (None when the table is complete) and no move
+    may be chosen: the engine holds the start graph and its score.
+    """
 
     def __init__(
         self,
         scorer: Scorer,
         constraints: Constraints,
         parent_sets: Sequence[Iterable[int]] | None = None,
+        budget: Budget | None = None,
     ) -> None:
         super().__init__(scorer, constraints)
         n = self.n
@@ -95,8 +108,15 @@ class MoveEngine(BoundEngine):
         self._recompute_reach()
         self.family = np.zeros(n, dtype=np.float64)
         self.toggle = np.full((n, n), np.nan, dtype=np.float64)
+        check = FillCheck(budget)
+        self.stopped: str | None = None
         for child in range(n):
-            self._refresh_column(child)
+            if self.stopped is None:
+                if not self._refresh_column(child, check):
+                    self.stopped = check.stopped
+            else:  # the start graph's score stays whole: its family scores only
+                self.family[child] = scorer.family_by_mask(
+                    child, parent_mask(self.parents(child)))
 
     # -- the graph -------------------------------------------------------------------
     def parents(self, child: int) -> tuple[int, ...]:
@@ -115,8 +135,10 @@ class MoveEngine(BoundEngine):
         return RELATIVE_TOLERANCE * max(1.0, abs(self.score))
 
     # -- deltas ----------------------------------------------------------------------
-    def _refresh_column(self, child: int) -> None:
-        """Recompute family ``child`` and the toggle deltas of every candidate parent."""
+    def _refresh_column(self, child: int, check: FillCheck | None = None) -> bool:
+        """Recompute family ``child`` and the toggle deltas of every candidate parent;
+        False (the column left as it was, the family score updated) when ``check`` says
+        the budget ran out."""
         scorer = self.scorer
         mask = parent_mask(self.parents(child))
         base = scorer.family_by_mask(child, mask)
@@ -126,12 +148,15 @@ class MoveEngine(BoundEngine):
         for p in range(self.n):
             if p == child:
                 continue
+            if check is not None and check(scorer.evaluations) is not None:
+                return False
             if self.adjacency[p, child]:
                 if not self.required[p, child]:
                     column[p] = scorer.family_by_mask(child, mask & ~(1 << p)) - base
             elif room and self.allowed[p, child]:
                 column[p] = scorer.family_by_mask(child, mask | (1 << p)) - base
         self.toggle[:, child] = column
+        return True
 
     def delta_for_add(self, source: int, target: int) -> float:
         return float(self.toggle[source, target])

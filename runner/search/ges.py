@@ -50,7 +50,9 @@ def greedy_phase(engine: ClassEngine, kind: str, budget: Budget, rng: np.random.
     the knowledge are evaluated once more, so the phase ends only where no operator of its
     kind improves.
     """
-    queue = OperatorQueue(engine, kind)
+    queue = OperatorQueue(engine, kind, budget)
+    if queue.stopped is not None:  # the budget ran out while the queue was filled
+        return 0, queue.stopped
     fresh = True
     applied = 0
     while True:
@@ -84,7 +86,7 @@ def turning_phase(engine: ClassEngine, budget: Budget, rng: np.random.Generator 
     graphs", JMLR 13: theirs turns an edge in any member of the class; this one turns the
     edges of the member held, with the move engine's reversal deltas and legality.
     """
-    member = MoveEngine(engine.scorer, engine.constraints, engine.parent_sets())
+    member = MoveEngine(engine.scorer, engine.constraints, engine.parent_sets(), budget)
     budget.spent_steps = len(trace)
     try:
         outcome = climb(member, budget, partial(steepest_move, rng=rng, kinds=("reverse",)))

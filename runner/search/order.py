@@ -9,6 +9,10 @@ greedily. For the variable at position i (1-based) with no other constraint that
 sum_{k=0}^{d} C(i - 1, k) candidate sets, d the cap.
 
 Complexity: sum over variables of their candidate-set counts, each one family score.
+
+Budget: checked before each variable and every few candidate sets within one; a variable
+cut short keeps the best set scored so far (its required parents at least), the later
+ones their required parents.
 """
 
 from __future__ import annotations
@@ -17,7 +21,7 @@ from collections.abc import Sequence
 
 from runner.constraints import Constraints
 from runner.scores.cache import FamilyScorer
-from runner.search.budget import Budget
+from runner.search.budget import FILL_SLICE, Budget
 from runner.search.parent_sets import (
     DEFAULT_CANDIDATE_LIMIT,
     SearchRefused,
@@ -69,19 +73,23 @@ def order_search(
     score = 0.0
     stop_reason = "exhaustive"
     for child, forced, free in plan:
-        reason = budget.exhausted(0, scorer.evaluations)
-        if reason is not None:
-            stop_reason = reason
-            break
         scored = 0
         top, top_set = float("-inf"), tuple(forced)
         for candidate in parent_sets(forced, free, cap):
+            if scored % FILL_SLICE == 0:
+                reason = budget.exhausted(0, scorer.evaluations)
+                if reason is not None:
+                    stop_reason = reason
+                    break
             value = scorer.family(child, candidate)
             scored += 1
             if value > top:  # strict: the first (smallest, then lexicographic) set wins ties
                 top, top_set = value, candidate
-        best[child] = top_set
-        counts[names[child]] = scored
+        if scored or stop_reason == "exhaustive":
+            best[child] = top_set
+            counts[names[child]] = scored
+        if stop_reason != "exhaustive":
+            break
         score += top
     if stop_reason != "exhaustive":
         score = scorer.total(best)

@@ -75,6 +75,9 @@ def with_restarts(
         if budget.exhausted(steps, engine.scorer.evaluations) is not None:
             break
         engine = make_engine(best.parent_sets)
+        if engine.stopped is not None:  # the budget ran out while its deltas were filled
+            stop_reason = engine.stopped
+            break
         kicked = kick(engine, kick_moves, rng)
         start_score = engine.score
         budget.spent_steps = steps

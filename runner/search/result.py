@@ -66,11 +66,12 @@ def outcome_from(engine: MoveEngine, budget: Budget, steps: int, trace: list[Tra
 def climb(engine: MoveEngine, budget: Budget,
           choose: Callable[[MoveEngine], Move | None]) -> SearchOutcome:
     """The loop every improving local search shares: until the budget runs out, ask
-    ``choose`` for a move (None at a local optimum), apply it and trace it."""
+    ``choose`` for a move (None at a local optimum), apply it and trace it. An engine
+    whose first fill the budget stopped (``engine.stopped``) stops here, before any move."""
     trace: list[TraceRow] = []
     steps = 0
     while True:
-        reason = budget.exhausted(steps, engine.scorer.evaluations)
+        reason = engine.stopped or budget.exhausted(steps, engine.scorer.evaluations)
         if reason is not None:
             return outcome_from(engine, budget, steps, trace, reason)
         move = choose(engine)

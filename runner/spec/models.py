@@ -175,6 +175,16 @@ class GateSpec(_Section):
         "consensus networks (run | consensus; the key was `on` before).")
 
 
+class BootstrapBudgetSpec(_Section):
+    """A limit on all replicates together (each replicate's search also keeps
+    ``search.budget``)."""
+
+    max_seconds: Annotated[Real, Field(gt=0)] | None = Field(
+        None, description="Wall-clock seconds for all replicates together, counted from "
+        "the start of the first; a replicate's search gets at most the time left, and one "
+        "stopped by it counts as not converged. null: no total limit.")
+
+
 class BootstrapSpec(_Section):
     """Resampled re-learning for edge confidence (Friedman, Goldszmidt & Wyner 1999)."""
 
@@ -182,6 +192,8 @@ class BootstrapSpec(_Section):
     seed: Count = Field(0, description="Seed of the resampling.")
     threshold: Annotated[Real, Field(gt=0, le=1)] = Field(
         0.5, description="Share of replicates an edge needs to enter the consensus graph.")
+    budget: BootstrapBudgetSpec | None = Field(
+        None, description="A limit on all replicates together: {max_seconds: N}.")
 
 
 class FitSpec(_Section):
@@ -290,10 +302,13 @@ class Spec(_Section):
 
 def normalised_spec(spec: Spec, seed: int | None = None) -> dict[str, Any]:
     """The spec as plain JSON data, defaults filled in; ``seed`` overrides ``search.seed``.
-    ``tier_names`` appears only when the spec gives it (older specs keep their hash)."""
+    ``tier_names`` and ``bootstrap.budget`` appear only when the spec gives them (older
+    specs keep their hash)."""
     data = spec.model_dump(mode="json")
     if data.get("tier_names") is None:
         data.pop("tier_names", None)
+    if isinstance(data.get("bootstrap"), dict) and data["bootstrap"].get("budget") is None:
+        data["bootstrap"].pop("budget", None)  # older bootstrap specs keep their hash
     if seed is not None:
         data["search"]["seed"] = seed
     return _sort_keys(data)
