@@ -22,6 +22,7 @@ from typing import Any
 
 from runner import __version__, compare
 from runner.batch import run_specs
+from runner.compare import drift
 from runner.compare.rescore import rescore
 from runner.engines import ENGINE_ENV, choose_engine, open_engine
 from runner.environment import environment_changes, environment_sentence
@@ -344,8 +345,10 @@ def _check(args: argparse.Namespace) -> int:
             pinned = root / record["spec_name"] / "runs" / baseline["run_id"]
             # refuses a hand-edited baseline run (exit 2)
             pinned_record = read_run(pinned) if pinned.is_dir() else None
+            # drift on the same rows (None for same inputs); see runner/compare/drift.py
+            measured = drift.measure(root, record, baseline, pinned_record)
             report = compare.evaluate_gate(baseline, record, record["spec"]["gate"],
-                                           pinned_record)
+                                           pinned_record, drift=measured)
         report["folder"] = str(result.folder)
         write_check_outcome(result.folder, record, baseline, report["ok"],
                             report.get("verdict") or report["status"], report["failures"],

@@ -16,6 +16,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from runner import compare
+from runner.compare.drift import DriftMeasures
 from runner.compare.rescore import rescore
 from runner.errors import InputError
 from runner.graph import graph_sha256
@@ -107,17 +108,34 @@ def test_gate_same_inputs_identical_passes_and_differing_fails() -> None:
     assert not other["ok"] and "different graph" in other["failures"][0]
 
 
-def test_gate_score_tolerance_is_relative_per_row() -> None:
+def test_gate_score_tolerance_is_relative_on_the_same_rows() -> None:
+    # Search regression: both graphs scored on the same rows (the drift measures); the
+    # new graph may fall short of the baseline graph by score_tolerance, relative.
     base = baseline(record([["a", "b"]], per_row=-2.0))
-    new_inputs = "n" * 64
-    small = record([["a", "b"]], per_row=-2.0 * (1 + 1e-10), inputs=new_inputs)
-    large = record([["a", "b"]], per_row=-2.0 * (1 + 1e-3), inputs=new_inputs)
-    better = record([["a", "b"]], per_row=-1.0, inputs=new_inputs)
-    assert compare.evaluate_gate(base, small, GATE)["ok"]
-    assert compare.evaluate_gate(base, better, GATE)["ok"]
-    failed = compare.evaluate_gate(base, large, GATE)
-    assert not failed["ok"] and "score per row dropped 1.000e-03" in failed["failures"][0]
-    assert compare.evaluate_gate(base, large, {**GATE, "score_tolerance": 1e-2})["ok"]
+    new = record([["a", "b"]], per_row=-2.0, inputs="n" * 64)
+
+    def on_rows(new_graph: float) -> DriftMeasures:
+        return DriftMeasures("bic", "approximate", 100, -200.0, new_graph, None, "no model")
+
+    assert compare.evaluate_gate(base, new, GATE, drift=on_rows(-200.0 * (1 + 1e-10)))["ok"]
+    assert compare.evaluate_gate(base, new, GATE, drift=on_rows(-199.0))["ok"]
+    failed = compare.evaluate_gate(base, new, GATE, drift=on_rows(-200.0 * (1 + 1e-3)))
+    assert not failed["ok"]
+    assert failed["failures"][0].startswith("search-regression: the new graph scores "
+                                            "-200.200000")
+    assert "(relative 1.000e-03), more than gate.score_tolerance 1e-09" in failed["failures"][0]
+    assert compare.evaluate_gate(base, new, {**GATE, "score_tolerance": 1e-2},
+                                 drift=on_rows(-200.0 * (1 + 1e-3)))["ok"]
+
+
+def test_gate_never_gates_the_per_row_score_of_different_data() -> None:
+    # A lower per-row score on other data says nothing about the graphs: information only.
+    base = baseline(record([["a", "b"]], per_row=-2.0))
+    worse = record([["a", "b"]], per_row=-3.0, inputs="n" * 64)
+    report = compare.evaluate_gate(base, worse, GATE)
+    rules = {r["rule"]: r for r in report["rules"]}
+    assert report["ok"] and rules["score"]["status"] == "info"
+    assert (rules["score"]["baseline"], rules["score"]["new"]) == (-2.0, -3.0)
 
 
 def test_gate_counts_class_edge_changes_not_dag_ones() -> None:
@@ -140,28 +158,41 @@ def test_gate_state_changes_fail_unless_allowed() -> None:
     new = record([["a", "b"]], inputs="n" * 64, columns=columns)
     report = compare.evaluate_gate(base, new, GATE)
     assert not report["ok"]
-    assert report["failures"] == ["column 'a': new states '2'; vanished states '1' "
+    assert report["failures"] == ["columns: column 'a': new states '2'; vanished states '1' "
                                   "(gate.allow_new_states is false)"]
     allowed = compare.evaluate_gate(base, new, {**GATE, "allow_new_states": True})
-    assert allowed["ok"] and "allowed by gate.allow_new_states" in allowed["notes"][0]
+    assert allowed["ok"]
+    assert any("allowed by gate.allow_new_states" in n for n in allowed["notes"])
 
 
 def test_gate_reports_each_rule_with_its_numbers_and_threshold() -> None:
     base = baseline(record([["a", "b"]], per_row=-2.0))
     new = record([["a", "b"], ["c", "d"]], per_row=-2.5, inputs="n" * 64)
-    report = compare.evaluate_gate(base, new, {**GATE, "max_edge_changes": 2})
+    # On the same rows the new graph beats the baseline graph by 30 log-units.
+    drift = DriftMeasures("bic", "approximate", 100, -250.0, -220.0, None, "no model")
+    report = compare.evaluate_gate(base, new, {**GATE, "max_edge_changes": 2}, drift=drift)
     rules = {r["rule"]: r for r in report["rules"]}
     assert [r["rule"] for r in report["rules"]] == [rule.name for rule in compare.RULES]
     assert rules["consensus"]["status"] == rules["reproduce"]["status"] == "skipped"
-    # -2.0 -> -2.5 per row is a relative drop of 0.25 (score_tolerance 1e-9): fails.
-    assert rules["score"] == {"rule": "score", "status": "fail", "baseline": -2.0,
-                              "new": -2.5, "measure": -0.25, "threshold": 1e-9}
+    # -2.0 -> -2.5 per row on different data: shown, not gated.
+    assert rules["score"] == {"rule": "score", "status": "info", "baseline": -2.0,
+                              "new": -2.5, "measure": -0.25, "threshold": None}
+    # The new graph is better on the same rows: no search regression (shortfall -0.12).
+    assert rules["search-regression"]["status"] == "pass"
+    assert rules["search-regression"]["measure"] == pytest.approx(-0.12)
+    # ... by 30 log-units, more than the default evidence 10: structural drift.
+    drifted = rules["structural-drift"]
+    assert (drifted["status"], drifted["baseline"], drifted["new"], drifted["measure"],
+            drifted["threshold"]) == ("fail", -250.0, -220.0, 30.0, 10.0)
+    assert drifted["detail"]["grade"] == "very strong"
     # One class edge added, two allowed: passes.
     assert rules["class-edges"]["status"] == "pass"
     assert (rules["class-edges"]["measure"], rules["class-edges"]["threshold"]) == (1, 2)
     assert report["failures"] == [
-        "score per row dropped 2.500e-01 (relative), more than score_tolerance 1e-09: "
-        "-2.000000 -> -2.500000"]
+        "structural-drift: the new graph beats the baseline graph on the new run's 100 "
+        "learning rows (bic) by 30.000 log-units (-220.000000 against -250.000000; "
+        "2 ln B = 60.0, very strong on the Kass & Raftery 1995 scale), more than "
+        "gate.evidence 10: class edge added c - d"]
 
 
 def test_gate_takes_extra_rules() -> None:
@@ -172,7 +203,7 @@ def test_gate_takes_extra_rules() -> None:
     base = baseline(record([["a", "b"]]))
     rules = (*compare.RULES, compare.Rule("never", never))
     report = compare.evaluate_gate(base, record([["a", "b"]]), GATE, rules=rules)
-    assert not report["ok"] and report["failures"] == ["never passes"]
+    assert not report["ok"] and report["failures"] == ["never: never passes"]
     assert report["rules"][-1] == {"rule": "never", "status": "fail", "baseline": 1, "new": 2,
                                    "measure": 3, "threshold": 0}
 

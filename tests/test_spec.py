@@ -119,7 +119,7 @@ def test_minimal_spec_fills_every_default(tmp_path: Path) -> None:
     assert data["search"]["budget"] == {"max_evaluations": None, "max_seconds": 600.0,
                                         "max_steps": 10000}
     assert data["gate"] == {"allow_new_states": False, "max_edge_changes": 0, "graph": "run",
-                            "score_tolerance": 1e-9}
+                            "score_tolerance": 1e-9, "evidence": 10.0}
     assert data["tiers"] == [] and data["parent_cap"] is None
     assert list(data) == sorted(data)
     assert spec.warnings == []

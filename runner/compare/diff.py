@@ -12,6 +12,7 @@ by Chickering's (1995) edge labelling (see :mod:`runner.graph`).
 
 from __future__ import annotations
 
+import json
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
@@ -200,6 +201,30 @@ def describe_edges(diff: Mapping[str, Any]) -> list[str]:
         else:
             lines.append(f"class edge {c['old']} now {c['new']}")
     return lines
+
+
+def _flatten(value: Any, prefix: str = "") -> dict[str, Any]:
+    """A nested mapping as ``{dotted key: value}``; lists and scalars are leaves."""
+    if isinstance(value, Mapping) and (value or not prefix):
+        out: dict[str, Any] = {}
+        for key in sorted(value, key=str):
+            out.update(_flatten(value[key], f"{prefix}.{key}" if prefix else str(key)))
+        return out
+    return {prefix: value}
+
+
+def _shown(value: Any, present: bool) -> str:
+    return json.dumps(value, sort_keys=True, separators=(", ", ": ")) if present else "(absent)"
+
+
+def spec_changes(old: Mapping[str, Any], new: Mapping[str, Any]) -> list[str]:
+    """The keys that differ between two normalised specs, sorted: ``dotted.key: old ->
+    new`` with the values as JSON (``(absent)`` for a key one side lacks); a list is one
+    value (``tiers``, ``forbidden``)."""
+    a, b = _flatten(old), _flatten(new)
+    return [f"{key}: {_shown(a.get(key), key in a)} -> {_shown(b.get(key), key in b)}"
+            for key in sorted(set(a) | set(b))
+            if key not in a or key not in b or a[key] != b[key]]
 
 
 def needs_rescore(a: Mapping[str, Any], b: Mapping[str, Any]) -> bool:

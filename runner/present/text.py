@@ -309,12 +309,51 @@ def baseline_changes(old: Mapping[str, Any] | None, new: Mapping[str, Any]) -> l
     return lines
 
 
-def _result(rule: Mapping[str, Any], text: str) -> str:
-    return f"{text}: {'FAIL' if rule['status'] == 'fail' else 'ok'}"
+def _verdict(rule: Mapping[str, Any] | None) -> str:
+    if rule is None:
+        return ""
+    return {"fail": "FAIL", "pass": "ok", "info": "info (not gated)"}.get(rule["status"],
+                                                                       "skipped")
+
+
+def _drift_rows(rules: Mapping[str, Mapping[str, Any]]) -> list[list[str]]:
+    """The same-rows rules: search regression, structural drift, fit drift."""
+    rows = []
+    search, drift, fit = (rules.get(k) for k in ("search-regression", "structural-drift",
+                                                   "fit-drift"))
+    if search is not None:
+        numbers = search["baseline"] is not None
+        rows.append(["search regression (same rows)",
+                     f"{search['baseline']:.3f}" if numbers else "-",
+                     f"{search['new']:.3f}" if numbers else "-",
+                     f"{search['measure']:+.3e} rel. shortfall" if numbers else "",
+                     f"tol {search['threshold']:g}" if numbers else "", _verdict(search)])
+    if drift is not None:
+        numbers = drift["baseline"] is not None
+        grade = (drift.get("detail") or {}).get("grade", "")
+        rows.append(["structural drift (same rows)",
+                     f"{drift['baseline']:.3f}" if numbers else "-",
+                     f"{drift['new']:.3f}" if numbers else "-",
+                     f"{drift['measure']:+.3f} log-units ({grade})" if numbers else "",
+                     f"evidence {drift['threshold']:g}" if numbers else "", _verdict(drift)])
+    if fit is not None:
+        detail = fit.get("detail") or {}
+        interval = detail.get("interval")
+        new = ("-" if fit["new"] is None else f"{fit['new']:.4f}"
+               + (f" [{interval[0]:.4f}, {interval[1]:.4f}]" if interval else ""))
+        rows.append(["fit drift (per row)",
+                     "-" if fit["baseline"] is None else f"{fit['baseline']:.4f} held out",
+                     new, "" if fit["measure"] is None else f"{fit['measure']:+.4f}",
+                     f"{detail.get('level', 0.95):.0%} interval below baseline fails"
+                     if fit["status"] in ("pass", "fail") else "", _verdict(fit)])
+    return rows
 
 
 def check_table(report: Mapping[str, Any]) -> str:
-    """The table ``check`` prints per spec: each gate rule, baseline, new, result."""
+    """The table ``check`` prints per spec: each gate rule with the baseline's and the new
+    side's numbers, their difference, the threshold and the verdict. With different
+    inputs the drift rows hold the baseline graph and the new graph scored on the same
+    rows (the new run's learning rows) and the baseline model's fit there."""
     head = (f"{report['spec']}: {report['status'].upper()}  run {report['run_id']}  "
             f"baseline {report['baseline_run_id'] or '-'}")
     if report["status"] == "no-baseline":
@@ -325,24 +364,34 @@ def check_table(report: Mapping[str, Any]) -> str:
     if "consensus" in rules and rules["consensus"]["status"] == "fail":
         rows.append(["consensus networks", "-" if rules["consensus"]["baseline"] is None
                      else "present", "-" if rules["consensus"]["new"] is None else "present",
-                     "FAIL"])
+                     "", "", "FAIL"])
     if report["same_inputs"]:
-        rows.append(["inputs", "same input hash", "", "identical"
-                     if rules["reproduce"]["status"] != "fail" else "NOT REPRODUCED"])
+        rows.append(["inputs", "same input hash", "", "", "identical",
+                     "identical" if rules["reproduce"]["status"] != "fail"
+                     else "NOT REPRODUCED"])
+        rows.append([f"score per row ({s['b']['name']})", f"{s['a']['per_row']:.6f}",
+                     f"{s['b']['per_row']:.6f}", f"{s['delta_per_row']:+.3e}", "", ""])
     else:
-        rows.append(["inputs", "differ", "", "compared by gate"])
+        rows.append(["inputs", "differ", "", "", "", "compared by gate"])
+        rows.append([f"score per row, own data ({s['b']['name']})",
+                     f"{s['a']['per_row']:.6f}", f"{s['b']['per_row']:.6f}",
+                     f"{s['relative_per_row']:+.3e} rel.", "not gated",
+                     _verdict(rules.get("score"))])
+        rows += _drift_rows(rules)
+    edges = rules["class-edges"]
+    counted = ("" if edges["status"] == "skipped" or edges["measure"] == edges["new"]
+               else f"{edges['measure']} counted (bootstrap)")
     rows += [
-        [f"score per row ({s['b']['name']})", f"{s['a']['per_row']:.6f}",
-         f"{s['b']['per_row']:.6f}", _result(
-             rules["score"], f"{s['relative_per_row']:+.3e} vs tol {g['score_tolerance']:g}")],
         ["class edge changes" + (" (consensus)" if g.get("graph") == "consensus" else ""), "",
-         str(report["shd_cpdag"]),
-         _result(rules["class-edges"], f"max {g['max_edge_changes']}")],
-        ["columns and states", "", str(rules["columns"]["new"]),
+         str(report["shd_cpdag"]), counted, f"max {g['max_edge_changes']}",
+         "FAIL" if edges["status"] == "fail" else "ok"],
+        ["columns and states", "", str(rules["columns"]["new"]), "",
+         f"allow_new_states {str(g['allow_new_states']).lower()}",
          "FAIL" if rules["columns"]["status"] == "fail" else "ok"],
-        ["verdict", "", str(report["verdict"]), ""],
+        ["verdict", "", str(report["verdict"]), "", "", ""],
     ]
-    body = render_table(["gate", "baseline", "new", "result"], rows)
+    body = render_table(["gate", "baseline", "new", "difference", "threshold", "result"],
+                        rows)
     extra = [f"  FAIL {f}" for f in report["failures"]]
     extra += [f"  note {n}" for n in report["notes"]]
     extra += [f"  change {c}" for c in report["changes"]]

@@ -165,7 +165,8 @@ class GateSpec(_Section):
     """What a re-check holds a new result to, against the pinned baseline."""
 
     score_tolerance: Annotated[Real, Field(ge=0)] = Field(
-        1e-9, description="Relative drop in per-row score allowed before failing.")
+        1e-9, description="Search regression: how far (relative) the new graph may score "
+        "below the baseline graph on the same rows (the new run's learning rows).")
     max_edge_changes: Count = Field(
         0, description="Edges added + removed + reversed allowed (equivalence-class level).")
     allow_new_states: StrictBool = Field(
@@ -173,6 +174,15 @@ class GateSpec(_Section):
     graph: Literal["run", "consensus"] = Field(
         "run", description="Hold the learned graph against the baseline's, or the bootstrap "
         "consensus networks (run | consensus; the key was `on` before).")
+    # Default 10 log-units: 2 ln B = 20, beyond the "very strong" grade (2 ln B > 10) of
+    # Kass & Raftery (1995), "Bayes factors", JASA 90(430): 773-795; measured margins of
+    # same-network drops stay far below it (runner/compare/gate.py DEFAULT_EVIDENCE).
+    evidence: Annotated[Real, Field(gt=0)] = Field(
+        10.0, description="Structural drift: log-units (natural log of the Bayes factor) "
+        "by which a re-learned graph must beat the baseline graph on the same rows to count "
+        "as drift. Scale (Kass & Raftery 1995, Bayes factors, JASA 90: 773-795), in 2 ln B: "
+        "0-2 not worth more than a bare mention, 2-6 positive, 6-10 strong, above 10 very "
+        "strong; the default 10 is 2 ln B = 20.")
 
 
 class BootstrapBudgetSpec(_Section):
