@@ -290,7 +290,8 @@ def test_fit_drift_interval_is_deterministic(case: Path,
     pinned = read_run(root / "toy-drift" / "runs" / baseline["run_id"])
     model = read_model(root / "toy-drift" / "runs" / baseline["run_id"], pinned)
     record = {**pinned, "input_sha256": "x" * 64}
-    twice = [same_rows(record, baseline["edges"], model, -1.0).as_dict() for _ in range(2)]
+    twice = [same_rows(record, baseline["edges"], model, -1.0, results=root).as_dict()
+             for _ in range(2)]
     assert json.dumps(twice[0]) == json.dumps(twice[1])
 
 

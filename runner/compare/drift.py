@@ -288,17 +288,20 @@ def held_out_figure(record: Mapping[str, Any] | None) -> float | None:
 
 def same_rows(record: Mapping[str, Any], baseline_edges: Sequence[Sequence[str]],
               model: Mapping[str, Any] | None, held_out: float | None,
-              data_path: str | Path | None = None) -> DriftMeasures:
+              data_path: str | Path | None = None,
+              results: Path | None = None) -> DriftMeasures:
     """Both graphs and the baseline model on the new run's learning rows.
 
     ``record`` is the new run, ``baseline_edges`` the baseline's graph, ``model`` the
     baseline's ``model.json`` (None: no fit drift) and ``held_out`` its held-out figure
-    per row. Raises InputError when the new run's data cannot be prepared again, and
+    per row; ``results`` is the results folder the record is stored in (its data path is
+    relative to that folder's parent). Raises InputError when the new run's data cannot
+    be prepared again, and
     AssertionError when the new graph does not score the new run's stored score there
     (the two preparations differ: a bug)."""
     from runner.pipeline import prepare_stored
 
-    inputs = prepare_stored(record, data_path)
+    inputs = prepare_stored(record, data_path, results=results)
     names = list(inputs.dataset.names)
     scorer = inputs.scorer()
     new_total = scorer.total(parents_from_edges(names, record["edges"]))
@@ -338,7 +341,8 @@ def measure(root: Path, record: Mapping[str, Any], baseline: Mapping[str, Any],
         folder = root / str(baseline["spec_name"]) / "runs" / str(baseline["run_id"])
         model = read_model(folder, dict(pinned_record))
     try:
-        found = same_rows(record, baseline["edges"], model, held_out_figure(pinned_record))
+        found = same_rows(record, baseline["edges"], model, held_out_figure(pinned_record),
+                          results=root)
     except InputError as exc:
         reason = "; ".join(p.format() for p in exc.problems)
         return DriftSkipped(f"drift measures skipped: the new run's data could not be "
