@@ -21,10 +21,10 @@ from pathlib import Path
 from typing import Any
 
 from runner import __version__, compare
-from runner.batch import run_specs
+from runner.batch import FAILED, LEARNED, UP_TO_DATE, SpecOutcome, learn_planned, plan_specs
 from runner.compare import drift
 from runner.compare.rescore import rescore
-from runner.engines import ENGINE_ENV, choose_engine, open_engine
+from runner.engines import ENGINE_ENV, InProcess, choose_engine, open_engine
 from runner.environment import environment_changes, environment_sentence
 from runner.errors import EnvironmentFault, InputError, Problem
 from runner.export import FORMATS, export
@@ -34,10 +34,12 @@ from runner.present.text import (
     check_table,
     compare_lines,
     history_table,
+    overview_table,
     run_table,
     summary_lines,
 )
 from runner.progress import Reporter
+from runner.project import DEFAULT_SPECS, SPECS_ENV, project_board, spec_arguments, specs_folder
 from runner.record import baseline_json_schema, record_json_schema
 from runner.spec import load_spec, spec_json_schema
 from runner.store import (
@@ -87,6 +89,14 @@ def _engine_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
 
 
+def _spec_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("specs", nargs="*", metavar="SPEC",
+                   help=f"spec files or folders of specs (default: ${SPECS_ENV} or "
+                   f"{DEFAULT_SPECS}/); a spec found in a folder is skipped when up to date")
+    p.add_argument("--force", action="store_true",
+                   help="learn the specs found in a folder even when they are up to date")
+
+
 def _parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="dagmill", description=__doc__.splitlines()[0], epilog=EXIT_CODES,
                      formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -99,8 +109,9 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("specs", nargs="+", metavar="SPEC")
     p.add_argument("--json", action="store_true")
 
-    p = sub.add_parser("run", help="learn and store a run for each spec")
-    p.add_argument("specs", nargs="+", metavar="SPEC")
+    p = sub.add_parser("run", help="learn and store a run for each spec (default: the "
+                       "project's specs that are not up to date)")
+    _spec_options(p)
     p.add_argument("--data", help="learn on this CSV instead of the spec's dataset")
     p.add_argument("--seed", type=_seed, help="override search.seed (0 to 2**63-1)")
     p.add_argument("--results", help="results folder (default $DAGMILL_RESULTS or ./results)")
@@ -125,12 +136,20 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
 
     p = sub.add_parser("check", help="re-learn specs and hold them against their baselines")
-    p.add_argument("specs", nargs="+", metavar="SPEC")
+    _spec_options(p)
     p.add_argument("--data", help="a new data drop (same columns) to learn on")
     p.add_argument("--junit", metavar="FILE", help="write a JUnit XML report here")
     p.add_argument("--results")
     p.add_argument("--json", action="store_true")
     _engine_options(p)
+
+    p = sub.add_parser("overview", help="the project board: each spec's last run, whether "
+                       "it is up to date (and why not), baseline and last check")
+    p.add_argument("folder", nargs="?", metavar="FOLDER",
+                   help=f"the spec folder (default: ${SPECS_ENV} or {DEFAULT_SPECS}/)")
+    p.add_argument("--html", metavar="FILE", help="also write the board as an HTML page")
+    p.add_argument("--results")
+    p.add_argument("--json", action="store_true")
 
     p = sub.add_parser("history", help="the runs of a spec, oldest first")
     p.add_argument("spec", metavar="SPEC", help="a spec file or a spec name")
@@ -207,19 +226,64 @@ def _cmd_validate(args: argparse.Namespace) -> int:
     return 2 if failed else 0
 
 
-def _cmd_run(args: argparse.Namespace) -> int:
-    root = results_root(args.results)
-    if args.data is not None and len(args.specs) > 1:
+def _learn_specs(args: argparse.Namespace, root: Path,
+                 reuse_bins: bool | None = None) -> list[SpecOutcome]:
+    """``run``/``check``: the SPEC arguments as spec files (none: the project's specs),
+    all prepared before any is learned, the up-to-date project specs skipped unless
+    ``--force``; the engine is opened only when there is something to learn."""
+    refs = spec_arguments(args.specs)
+    if args.data is not None and len(refs) > 1:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
-    out, mismatch, shown = [], [], []
     choice = choose_engine(args.engine, args.workers)
     if choice.capped:
         print(choice.capped, file=sys.stderr)
+    seed = getattr(args, "seed", None)
+    planned = plan_specs([r.path for r in refs], root, data_path=args.data, seed=seed,
+                         reuse_bins=reuse_bins, project={r.path for r in refs if r.discovered},
+                         force=args.force)
+    if all(p.current is not None for p in planned):
+        return learn_planned(planned, root, InProcess())  # nothing to learn
     with open_engine(choice) as engine:
-        results = run_specs(args.specs, root, engine, data_path=args.data, seed=args.seed,
-                            reporter=Reporter(args.quiet))
-    for result in results:
+        return learn_planned(planned, root, engine, seed=seed, reporter=Reporter(args.quiet))
+
+
+def _outcome_lines(outcomes: Sequence[SpecOutcome], up_to_date: bool = True) -> list[str]:
+    """The lines of the specs that were not learned (up to date, unless ``up_to_date`` is
+    false; failed) and, for several specs, the count of each."""
+    lines = []
+    for o in outcomes:
+        if o.status == UP_TO_DATE and up_to_date:
+            assert o.result is not None
+            lines.append(f"{o.name}: up to date: run {o.result.run_id}")
+        elif o.status == FAILED:
+            lines.append(f"{o.name}: FAILED: {len(o.problems)} problem(s) (on stderr)")
+    if len(outcomes) > 1:
+        counts = {s: sum(o.status == s for o in outcomes) for s in (LEARNED, UP_TO_DATE, FAILED)}
+        lines.append(f"{len(outcomes)} spec(s): {counts[LEARNED]} learned, "
+                     f"{counts[UP_TO_DATE]} up to date"
+                     + (f", {counts[FAILED]} failed" if counts[FAILED] else ""))
+    return lines
+
+
+def _failed(outcomes: Sequence[SpecOutcome]) -> bool:
+    """Print the problems of the specs that failed while learning; whether any did."""
+    problems = [p for o in outcomes if o.status == FAILED for p in o.problems]
+    for problem in problems:
+        print(f"error: {problem.format()}", file=sys.stderr)
+    return any(o.status == FAILED for o in outcomes)
+
+
+def _cmd_run(args: argparse.Namespace) -> int:
+    root = results_root(args.results)
+    outcomes = _learn_specs(args, root)
+    out, mismatch, shown = [], [], []
+    for outcome in outcomes:
+        result = outcome.result
+        if result is None:
+            continue
         _warn(result.warnings)  # stderr, so also under --json
+        if outcome.status != LEARNED:
+            continue
         twin = None
         if result.twin is not None:
             twin = {"run_id": result.twin["run_id"], "identical": result.twin_identical}
@@ -231,14 +295,20 @@ def _cmd_run(args: argparse.Namespace) -> int:
                     "graph_sha256": rec["graph_sha256"], "twin": twin})
         shown.append({"run_id": result.run_id, "record": rec, "twin": twin})
     if args.json:
-        print(json.dumps({"runs": out}, indent=2, sort_keys=True))
+        print(json.dumps({"runs": out, "specs": [o.as_dict() for o in outcomes]},
+                         indent=2, sort_keys=True))
     else:
-        print(run_table(shown))
+        if shown:
+            print(run_table(shown))
         for item in out:
             print(f"stored: {item['folder']}")
             print(f"report: dagmill report {item['run_id']} --results {root}")
+        for line in _outcome_lines(outcomes):
+            print(line)
     for result in mismatch:
         print(_not_reproduced(result, root), file=sys.stderr)
+    if _failed(outcomes):
+        return 2
     return 1 if mismatch else 0
 
 
@@ -316,24 +386,30 @@ def _cmd_check(args: argparse.Namespace) -> int:
         return _check(args)
     except InputError as exc:
         if args.junit:
-            names = [Path(s).stem for s in args.specs]
+            names = _junit_names(args.specs)
             atomic_write_text(Path(args.junit), compare.junit_error_xml(
                 names, [p.format() for p in exc.problems]))
         raise
 
 
+def _junit_names(specs: Sequence[str]) -> list[str]:
+    """The names of the JUnit error case: the spec files' stems (none when the SPEC
+    arguments cannot even be listed)."""
+    try:
+        return [Path(ref.path).stem for ref in spec_arguments(specs)]
+    except InputError:
+        return [Path(s).stem for s in specs]
+
+
 def _check(args: argparse.Namespace) -> int:
+    """``check``: an up-to-date project spec is not learned again: its latest stored run
+    is held against the baseline instead, and no new ``check.json`` is written."""
     root = results_root(args.results)
-    if args.data is not None and len(args.specs) > 1:
-        raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
     reports, seconds, texts = [], {}, []
-    choice = choose_engine(args.engine, args.workers)
-    if choice.capped:
-        print(choice.capped, file=sys.stderr)
-    with open_engine(choice) as engine:
-        results = run_specs(args.specs, root, engine, data_path=args.data,
-                            reuse_bins=True,
-                            reporter=Reporter(args.quiet))
+    outcomes = _learn_specs(args, root, reuse_bins=True)
+    results = [o.result for o in outcomes if o.result is not None]
+    reused = {o.result.run_id for o in outcomes
+              if o.status == UP_TO_DATE and o.result is not None}
     for result in results:
         _warn(result.warnings)  # stderr, so also under --json
         record = result.record
@@ -350,21 +426,57 @@ def _check(args: argparse.Namespace) -> int:
             report = compare.evaluate_gate(baseline, record, record["spec"]["gate"],
                                            pinned_record, drift=measured)
         report["folder"] = str(result.folder)
-        write_check_outcome(result.folder, record, baseline, report["ok"],
-                            report.get("verdict") or report["status"], report["failures"],
-                            datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"))
+        if result.run_id not in reused:  # a re-used up-to-date run keeps what it has
+            write_check_outcome(result.folder, record, baseline, report["ok"],
+                                report.get("verdict") or report["status"], report["failures"],
+                                datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"))
         seconds[record["spec_name"]] = record["seconds"]["total"]
         reports.append(report)
         texts.append(check_table(report))
+    for report in reports:
+        report["up_to_date"] = report["run_id"] in reused
     ok = all(r["ok"] for r in reports)
     if args.junit:
         atomic_write_text(Path(args.junit), compare.junit_xml(reports, seconds))
     if args.json:
-        print(json.dumps({"ok": ok, "checks": reports}, indent=2, sort_keys=True))
+        print(json.dumps({"ok": ok, "checks": reports,
+                          "specs": [o.as_dict() | {"ok": _spec_ok(o, reports)}
+                                    for o in outcomes]}, indent=2, sort_keys=True))
     else:
-        print("\n\n".join(texts))
+        print("\n\n".join(f"{r['spec']}: up to date: run {r['run_id']} (not learned "
+                           f"again; held against the baseline)\n{text}" if r["up_to_date"]
+                           else text for r, text in zip(reports, texts, strict=True)))
         print(f"\n{sum(r['ok'] for r in reports)} of {len(reports)} check(s) passed")
+        for line in _outcome_lines(outcomes, up_to_date=False):
+            print(line)
+    if _failed(outcomes):
+        return 2
     return 0 if ok else 1
+
+
+def _spec_ok(outcome: SpecOutcome, reports: Sequence[dict[str, Any]]) -> bool | None:
+    """Whether the check of one spec passed (None when it failed before a check)."""
+    if outcome.result is None:
+        return None
+    return next(r["ok"] for r in reports if r["run_id"] == outcome.result.run_id)
+
+
+def _cmd_overview(args: argparse.Namespace) -> int:
+    """``overview``: one row per spec of the project; exit 0 whatever the rows say (a spec
+    that does not validate is a row, not an error)."""
+    root = results_root(args.results)
+    board = project_board(specs_folder(args.folder), root).as_dict()
+    if args.html is not None:
+        from runner.present.overview import render_overview
+
+        out = _out_path(args.html)
+        atomic_write_text(out, render_overview(board))
+        print(f"wrote {out}", file=sys.stderr if args.json else sys.stdout)
+    if args.json:
+        print(json.dumps(board, indent=2, sort_keys=True))
+    else:
+        print(overview_table(board))
+    return 0
 
 
 def _spec_name(ref: str) -> str:
@@ -528,7 +640,8 @@ def _check_signing_key() -> None:
 COMMANDS = {"export": _cmd_export, "validate": _cmd_validate, "run": _cmd_run, "show": _cmd_show,
             "compare": _cmd_compare, "pin": _cmd_pin, "check": _cmd_check,
             "history": _cmd_history, "schema": _cmd_schema, "demo": _cmd_demo,
-            "report": _cmd_report, "verify": _cmd_verify, "keygen": _cmd_keygen}
+            "report": _cmd_report, "verify": _cmd_verify, "keygen": _cmd_keygen,
+            "overview": _cmd_overview}
 
 
 #: errno values that are the machine's fault, not the input's: exit 3 with advice.

@@ -295,6 +295,14 @@ def input_sha256(spec_hash: str, data_hash: str, version: str, bins: str | None 
     return hashlib.sha256(text.encode()).hexdigest()
 
 
+def prepared_input_sha256(prepared: Prepared, seed: int | None = None) -> str:
+    """The input hash a learn of ``prepared`` (with the ``seed`` override) would record,
+    known before learning: :func:`input_sha256` of its spec hash, data hash, the code
+    version and its bins."""
+    return input_sha256(spec_sha256(prepared.spec, seed=seed), prepared.dataset.sha256,
+                        code_version(), prepared.bins_fingerprint)
+
+
 @dataclass
 class RunResult:
     run_id: str
@@ -454,7 +462,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     effective_seed = spec.search.seed if seed is None else seed
     spec_hash = spec_sha256(spec, seed=seed)
     version = code_version()
-    inputs = input_sha256(spec_hash, dataset.sha256, version, prepared.bins_fingerprint)
+    inputs = prepared_input_sha256(prepared, seed)
 
     score_spec = normalised_spec(spec)["score"]
     part, held = split_learning_rows(prepared)

@@ -318,7 +318,7 @@ def alarm() -> Network:
 # --------------------------------------------------------------------------- command line
 
 #: Variables a developer's shell may set that would change what a command does.
-CLI_ENV = ("DAGMILL_RESULTS", "DAGMILL_ENGINE", "DAGMILL_SIGNING_KEY")
+CLI_ENV = ("DAGMILL_RESULTS", "DAGMILL_ENGINE", "DAGMILL_SIGNING_KEY", "DAGMILL_SPECS")
 
 
 @dataclass(frozen=True)

@@ -396,3 +396,60 @@ def check_table(report: Mapping[str, Any]) -> str:
     extra += [f"  note {n}" for n in report["notes"]]
     extra += [f"  change {c}" for c in report["changes"]]
     return "\n".join([head, body, *extra])
+
+
+# --------------------------------------------------------------------------- overview
+
+#: How the board's states read in text.
+STATE_TEXT = {"up_to_date": "up to date", "stale": "STALE", "never_run": "never run",
+              "invalid": "INVALID"}
+
+
+def _board_baseline(row: Mapping[str, Any]) -> str:
+    base = row.get("baseline")
+    if base is None:
+        return "-"
+    if base.get("problem"):
+        return "REFUSED"
+    if not base["pinned"]:
+        return "none"
+    latest = (row.get("run") or {}).get("run_id")
+    return base["run_id"] + (" (= last run)" if base["run_id"] == latest else "")
+
+
+def _board_check(check: Mapping[str, Any] | None) -> str:
+    if check is None:
+        return "-"
+    return f"{'PASS' if check['ok'] else 'FAIL'} {check['verdict']}"
+
+
+def overview_table(board: Mapping[str, Any]) -> str:
+    """``overview``'s board (:meth:`runner.project.Board.as_dict`): one row per spec, then
+    each spec's reasons, problem, failing check rules and notes, one line each."""
+    table, details = [], []
+    for row in board["rows"]:
+        run, check = row.get("run"), row.get("check")
+        name = row["name"] or "?"
+        label = row["name"] or row["file"]
+        table.append([row["file"], name, STATE_TEXT.get(row["state"], row["state"]),
+                      "-" if run is None else run["run_id"],
+                      "-" if run is None else run["by"],
+                      "-" if run is None else run["created_utc"] or "-",
+                      "-" if run is None else str(run["edges"]),
+                      "-" if run is None else f"{run['score']} {run['per_row']:.6f}",
+                      _board_baseline(row), _board_check(check)])
+        if row["state"] == "stale":
+            details.append(f"{label}: stale: {'; '.join(row['reasons'])}")
+        if row.get("problem"):
+            details.append(f"{label}: invalid: {row['problem']}")
+        if check is not None and not check["ok"]:
+            details.append(f"{label}: last check (run {check['run_id']}, baseline "
+                           f"{check['baseline_run_id'] or '-'}) failed:")
+            details += [f"  FAIL {f}" for f in check["failures"]]
+        base = row.get("baseline") or {}
+        if base.get("problem"):
+            details.append(f"{label}: baseline refused: {base['problem']}")
+        details += [f"{label}: note: {n}" for n in row["notes"]]
+    body = render_table(["spec", "name", "state", "last run", "by", "when", "edges",
+                         "score/row", "baseline", "last check"], table)
+    return "\n".join([body, *(["", *details] if details else [])])
