@@ -21,8 +21,8 @@ from pathlib import Path
 from typing import Any
 
 from runner import __version__, compare
+from runner.api import hold_against_baseline
 from runner.batch import FAILED, LEARNED, UP_TO_DATE, SpecOutcome, learn_planned, plan_specs
-from runner.compare import drift
 from runner.compare.rescore import rescore
 from runner.engines import ENGINE_ENV, InProcess, choose_engine, open_engine
 from runner.environment import environment_changes, environment_sentence
@@ -52,7 +52,6 @@ from runner.store import (
     resolve_run,
     results_root,
     write_baseline,
-    write_check_outcome,
 )
 
 EXIT_CODES = """exit codes:
@@ -413,23 +412,9 @@ def _check(args: argparse.Namespace) -> int:
     for result in results:
         _warn(result.warnings)  # stderr, so also under --json
         record = result.record
-        baseline = read_baseline(root, record["spec_name"])
-        if baseline is None:
-            pin = f"dagmill pin {result.run_id} --results {root}"
-            report = compare.missing_baseline_report(record, pin)
-        else:
-            pinned = root / record["spec_name"] / "runs" / baseline["run_id"]
-            # refuses a hand-edited baseline run (exit 2)
-            pinned_record = read_run(pinned) if pinned.is_dir() else None
-            # drift on the same rows (None for same inputs); see runner/compare/drift.py
-            measured = drift.measure(root, record, baseline, pinned_record)
-            report = compare.evaluate_gate(baseline, record, record["spec"]["gate"],
-                                           pinned_record, drift=measured)
-        report["folder"] = str(result.folder)
-        if result.run_id not in reused:  # a re-used up-to-date run keeps what it has
-            write_check_outcome(result.folder, record, baseline, report["ok"],
-                                report.get("verdict") or report["status"], report["failures"],
-                                datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"))
+        # a re-used up-to-date run keeps what it has: no new check.json
+        report = hold_against_baseline(root, record, result.folder,
+                                       write_outcome=result.run_id not in reused)
         seconds[record["spec_name"]] = record["seconds"]["total"]
         reports.append(report)
         texts.append(check_table(report))

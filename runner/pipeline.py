@@ -37,7 +37,12 @@ from runner.search.budget import BUDGET_REASONS
 from runner.search.parent_sets import SearchRefused
 from runner.search.whole import PlanContext, SearchTask
 from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
+from runner.spec.loader import DICT_ORIGIN, load_spec_dict
 from runner.store import find_twin, model_reference, read_baseline, trace_csv, write_run
+
+#: How the Python API names inputs that are not files: a dict spec and a DataFrame.
+FRAME_ORIGIN = "<DataFrame>"
+IN_MEMORY = (DICT_ORIGIN, FRAME_ORIGIN)
 
 
 @dataclass
@@ -64,18 +69,24 @@ def baseline_bins(results: Path, spec_name: str) -> tuple[dict[str, dict[str, An
     return bins, f"baseline run {baseline['run_id']}"
 
 
-def prepare(spec_path: str | Path, data_path: str | Path | None = None,
-            bins_from: Path | None = None) -> Prepared:
+def prepare(spec_path: str | Path | Mapping[str, Any], data_path: str | Path | None = None,
+            bins_from: Path | None = None, *, data_display: str | None = None) -> Prepared:
     """Load and check a spec and its data; raise InputError with every problem found.
 
     When the spec itself has problems but its ``dataset`` block is sound, the data and
     the variable names are still checked, so one call reports everything. With
     ``bins_from`` (a results folder) continuous columns are cut at the bin edges stored
     in the spec's baseline there, when it has them for the same settings.
+
+    ``spec_path`` may be a mapping (the Python API's dict spec, checked by
+    :func:`runner.spec.loader.load_spec_dict` and named ``<dict>``); ``data_display``
+    names ``data_path`` in messages and the record (the API's ``<DataFrame>``).
     """
     problems: list[Problem] = []
+    spec_display = DICT_ORIGIN if isinstance(spec_path, Mapping) else str(spec_path)
     try:
-        spec = load_spec(spec_path)
+        spec = (load_spec_dict(spec_path) if isinstance(spec_path, Mapping)
+                else load_spec(spec_path))
     except InputError as exc:
         problems.extend(exc.problems)
         if not isinstance(exc.partial_spec, Spec):
@@ -84,7 +95,8 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
     warnings = list(spec.warnings)
     ds = spec.dataset
     if data_path is not None:
-        path, display, pin = Path(data_path), str(data_path), None
+        path, pin = Path(data_path), None
+        display = str(data_path) if data_display is None else data_display
     else:
         path, display, pin = spec.dataset_path(), ds.path, ds.sha256
     try:
@@ -103,7 +115,7 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
     stored, stored_from = (baseline_bins(bins_from, spec.name) if bins_from and binned
                            else ({}, ""))
     try:
-        resolved = resolve_data(normal, dataset, spec_file=str(spec_path), data_file=display,
+        resolved = resolve_data(normal, dataset, spec_file=spec_display, data_file=display,
                                 line_of=spec.line_of, stored_bins=stored,
                                 stored_from=stored_from)
     except InputError as exc:
@@ -116,7 +128,7 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
         dataset.names, spec.tiers, spec.within_tier, spec.forbidden, spec.required,
         spec.parent_cap,
     )
-    return Prepared(spec, dataset, constraints, display, str(spec_path), warnings,
+    return Prepared(spec, dataset, constraints, display, spec_display, warnings,
                     resolved.columns, resolved.bins_fingerprint)
 
 
@@ -180,7 +192,10 @@ def stored_path(path: str | Path, results: Path) -> str:
     """How a record stores a file's path: relative to the project folder (the results
     folder's parent) when the file lies inside it, else the file name alone, so no
     absolute path (a user name, a CI workspace) reaches a record and the same project
-    gives the same record wherever it is checked out. Always with ``/``."""
+    gives the same record wherever it is checked out. Always with ``/``. An input that
+    was never a file (the API's ``<dict>`` spec, ``<DataFrame>`` data) keeps its name."""
+    if str(path) in IN_MEMORY:
+        return str(path)
     project = results.resolve().parent
     resolved = Path(path).resolve()
     try:

@@ -5,7 +5,8 @@ or raises :class:`~runner.errors.InputError` carrying every problem it found, ea
 the file, the line, the dotted key path and the offending value. The file is composed
 with a YAML loader derived from ``yaml.SafeLoader`` (no object construction); only
 ``true``/``false`` are booleans (so a key ``on`` stays the text ``on``) and dates stay
-text.
+text. :func:`load_spec_dict` checks a spec given as a mapping (the Python API's dict
+spec) by passes 2 and 3 below, with the same messages (and no lines).
 
 Checking runs in three passes, all of whose problems are reported together:
 
@@ -22,10 +23,11 @@ from __future__ import annotations
 
 import copy
 import difflib
+import os
 import re
 import types
-from collections.abc import Iterator, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Annotated, Any, Literal, Union, get_args, get_origin
 
@@ -60,13 +62,102 @@ def load_spec(path: str | Path) -> Spec:
             raise InputError(tree.problems)
         raise InputError(Problem(file, "the top level of a spec must be a mapping of keys",
                                  line=root.start_mark.line + 1, value=_shown(tree.data)))
+    return _checked(tree, Path(path).resolve())
+
+
+#: How a spec given as a mapping (:func:`load_spec_dict`) is named in messages and records.
+DICT_ORIGIN = "<dict>"
+
+
+def load_spec_dict(data: Mapping[str, Any], origin: str = DICT_ORIGIN,
+                   base: str | Path | None = None) -> Spec:
+    """Check a spec given as a mapping, as :func:`load_spec` checks a file.
+
+    ``data`` is what a spec file would parse to (nested mappings and lists of text,
+    numbers, booleans and None; tuples count as lists, paths as text, numpy scalars as
+    numbers). It goes through the same models and cross-key rules, so every problem has
+    the same message and key as in a file; problems name ``origin`` and have no line.
+
+    Parameters
+    ----------
+    data
+        The spec as plain data; it is not modified.
+    origin
+        How messages and the run record name the spec (default ``<dict>``).
+    base
+        The folder relative paths (``dataset.path``) resolve against; default: the
+        current folder at the time of the call.
+
+    Returns
+    -------
+    Spec
+        The validated spec.
+
+    Raises
+    ------
+    InputError
+        With every problem found (``partial_spec`` set as :func:`load_spec` sets it).
+    """
+    tree = _Tree(origin)
+    if not isinstance(data, Mapping):
+        raise InputError(Problem(origin, "the top level of a spec must be a mapping of keys",
+                                 value=_shown(data)))
+    if not data:
+        raise InputError(Problem(origin, "the spec is empty; it needs at least 'name' and "
+                                         "'dataset'"))
+    tree.data = _plain(data, (), tree, frozenset())
+    folder = Path.cwd() if base is None else Path(base)
+    return _checked(tree, (folder / origin).resolve())
+
+
+#: A rule's reference to the line of another key (``(tiers.0.0, line 4)``) when the key
+#: has no line: always in a spec given as a mapping.
+_LINE_REFERENCE = re.compile(r" \(line None\)|, line None")
+
+
+def _lineless(problem: Problem) -> Problem:
+    """The problem without references to lines that do not exist."""
+    return replace(problem, message=_LINE_REFERENCE.sub("", problem.message))
+
+
+def _plain(value: Any, path: tuple[str, ...], tree: _Tree, active: frozenset[int]) -> Any:
+    """A mapping spec's value as the YAML loader would give it: dicts with text keys,
+    lists, and scalars (tuples as lists, paths as text, numpy scalars as numbers)."""
+    key = ".".join(path) or None
+    if isinstance(value, Mapping | list | tuple):
+        if id(value) in active:
+            tree.problems.append(Problem(tree.file, "the spec contains itself", key=key))
+            tree.refused.add(key or "")
+            return None
+        inner = active | {id(value)}
+        if not isinstance(value, Mapping):
+            return [_plain(item, (*path, str(i)), tree, inner) for i, item in enumerate(value)]
+        out: dict[str, Any] = {}
+        for name, item in value.items():
+            if isinstance(name, bool) or not isinstance(name, str | int | float):
+                tree.problems.append(Problem(tree.file, "a key must be plain text, not a list "
+                                             "or mapping", key=key))
+                continue
+            out[str(name)] = _plain(item, (*path, str(name)), tree, inner)
+        return out
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    if type(value).__module__ == "numpy" and hasattr(value, "item"):
+        return value.item()
+    return value
+
+
+def _checked(tree: _Tree, source: Path) -> Spec:
+    """The spec of a parsed tree, checked by the models and the cross-key rules (pass 2
+    and 3); raise InputError with every problem (the tree's own ones too)."""
+    file = tree.file
     spec, problems = _validate(tree.data, tree.lines, file)
     problems = [p for p in problems if not _inside_any(p.key or "", tree.refused)]
-    all_problems = _sorted_problems(tree.problems + problems)
+    all_problems = _sorted_problems([_lineless(p) for p in tree.problems + problems])
     partial = spec if spec is not None else _partial_spec(
         tree.data, frozenset(p.key or "" for p in all_problems))
     if partial is not None:
-        partial.attach_source(Path(path).resolve(), file, tree.lines, all_problems)
+        partial.attach_source(source, file, tree.lines, all_problems)
     if spec is None or any(p.severity == "error" for p in all_problems):
         error = InputError(all_problems)
         # The parts that passed, so callers can still check the data and the names in it.
