@@ -91,6 +91,9 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
         path, display, pin = Path(data_path), str(data_path), None
     else:
         path, display, pin = spec.dataset_path(), ds.path, ds.sha256
+        outside = spec.dataset_outside_problem()  # --data is the user's own choice
+        if outside is not None:
+            raise InputError([*problems, outside])
     try:
         dataset = read_data(normalised_spec(spec), path, display, expected_sha256=pin)
     except InputError as exc:
