@@ -30,19 +30,26 @@ Every problem found is collected and raised together as an :class:`InputError`.
 
 from __future__ import annotations
 
+import codecs
 import csv
+import errno
 import hashlib
 import io
 import math
+import mmap
+import os
+import warnings
 from collections.abc import Callable, Iterator, Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, BinaryIO
 
 import numpy as np
 import pandas
 
 from runner.errors import InputError, Problem
+from runner.files import special_file_kind
 
 #: Values (after stripping whitespace) read as "missing".
 MISSING_SPELLINGS: tuple[str, ...] = ("", "NA", "N/A", "NaN", "nan", "null", "NULL", "None")
@@ -54,6 +61,8 @@ MISSING_POLICIES: tuple[str, ...] = ("error", "drop-rows")
 MAX_ENCODABLE_STATES = 1 << 16
 
 CHUNK_BYTES = 1 << 20
+#: Bytes read and parsed at a time: memory for reading stays near a few blocks.
+READ_BLOCK = 8 << 20
 BOM = b"\xef\xbb\xbf"
 _SHOWN_LINES = 5  # row locations listed in one message
 _SHOWN_VALUES = 5  # undeclared values listed in one message
@@ -186,18 +195,8 @@ def load_dataset(
     """
     _check_policy(missing)
     file = display_path if display_path is not None else str(path)
-    target = Path(path)
-    raw = _read_file(target, file, key_prefix)
-    sha = hashlib.sha256(raw).hexdigest()
     problems: list[Problem] = []
-    if expected_sha256 is not None and expected_sha256.strip().lower() != sha:
-        problems.append(Problem(
-            file, f"the file's sha256 is {sha}, but {expected_sha256} is pinned; the data has "
-            f"changed (update {key_prefix}.sha256 if the new file is intended)",
-            key=f"{key_prefix}.sha256"))
-
-    body = _checked_text(raw, file, problems)
-    table = _parse_csv(body, file, problems)
+    sha, table = _read_table(Path(path), file, key_prefix, problems, expected_sha256)
     names, position_problems = _column_names(table.header, file, "in the header", line=1)
     problems.extend(position_problems)
     if table.data_rows == 0:
@@ -208,8 +207,9 @@ def load_dataset(
             file, f"the header has a single column {names[0]!r}; dagmill reads comma-separated "
             "files only", line=1, key=names[0], severity="warning"))
 
+    columns, table.columns = table.columns, []
     encoded = _encode_columns(
-        names, table.columns, file=file, locate=table.locate, unit="line",
+        names, columns, file=file, locate=table.locate, unit="line",
         declared=declared_states, max_states=max_states, missing=missing,
         key_prefix=key_prefix, kinds=declared_kinds)
     problems.extend(encoded.problems)
@@ -247,7 +247,8 @@ def encode_frame(
     if len(frame) == 0:
         problems.append(Problem(path, "has no data rows"))
         raise InputError(problems)
-    columns = [frame.iloc[:, j].to_numpy(dtype=object) for j in range(frame.shape[1])]
+    columns = [_factorise(frame.iloc[:, j].to_numpy(dtype=object))
+               for j in range(frame.shape[1])]
     encoded = _encode_columns(
         names, columns, file=path, locate=lambda rows: rows + 1, unit="row",
         declared=declared_states, max_states=max_states, missing=missing,
@@ -268,166 +269,567 @@ def _check_policy(missing: str) -> None:
         raise ValueError(f"missing must be one of {', '.join(MISSING_POLICIES)}, not {missing!r}")
 
 
-def _read_file(target: Path, file: str, key_prefix: str) -> bytes:
+def _read_table(target: Path, file: str, key_prefix: str, problems: list[Problem],
+                expected_sha256: str | None) -> tuple[str, _Table]:
+    """The file's sha256 and its table, read in two streaming passes over one open file:
+    the bytes (hash, UTF-8, NUL bytes, emptiness, where the text ends), then the CSV."""
     key = f"{key_prefix}.path"
+    handle = _open_regular(target, file, key)
     try:
-        if not target.exists():
-            raise InputError(Problem(file, f"file not found (looked for {target.absolute()})",
-                                     key=key))
-        if target.is_dir():
-            raise InputError(Problem(file, "is a folder, not a CSV file", key=key))
-        if not target.is_file():
-            raise InputError(Problem(file, "is not a regular file", key=key))
-        return target.read_bytes()
+        with handle:
+            before = os.fstat(handle.fileno())
+            scan = _scan(handle)
+            if expected_sha256 is not None and expected_sha256.strip().lower() != scan.sha256:
+                problems.append(Problem(
+                    file, f"the file's sha256 is {scan.sha256}, but {expected_sha256} is pinned; "
+                    f"the data has changed (update {key_prefix}.sha256 if the new file is "
+                    "intended)", key=f"{key_prefix}.sha256"))
+            _check_text(scan, file, problems)
+            table = _parse_body(handle, scan, file, problems)
+            after = os.fstat(handle.fileno())
     except PermissionError:
         raise InputError(Problem(file, "cannot be read: permission denied", key=key)) from None
     except OSError as exc:
         reason = exc.strerror or str(exc)
         raise InputError(Problem(file, f"cannot be read: {reason}", key=key)) from None
+    if (before.st_size, before.st_mtime_ns) != (after.st_size, after.st_mtime_ns):
+        raise InputError(Problem(file, "changed while it was being read; read it again once "
+                                 "it is complete", key=key))
+    return scan.sha256, table
 
 
-def _checked_text(raw: bytes, file: str, problems: list[Problem]) -> bytes:
-    """The file's bytes without a byte-order mark or trailing blank lines, ending in "\\n",
-    once they are known to be UTF-8 text that is not empty."""
+def _open_regular(target: Path, file: str, key: str) -> BinaryIO:
+    """The file opened for reading, once ``os.stat`` shows a regular file: a folder, a
+    device or a FIFO is refused before it is opened (opening a FIFO would wait for a
+    writer; a device can be endless). The open itself does not block either, and the
+    open file is checked again."""
     try:
-        raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = raw[: exc.start].count(b"\n") + 1
-        hint = ""
-        if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
-            hint = "; it looks like UTF-16"
+        kind = special_file_kind(os.stat(target).st_mode)
+        if kind is None:
+            nonblocking = getattr(os, "O_NONBLOCK", 0)
+            fd = os.open(target, os.O_RDONLY | nonblocking)
+            kind = special_file_kind(os.fstat(fd).st_mode)
+            if kind is None:
+                if nonblocking:
+                    os.set_blocking(fd, True)
+                return os.fdopen(fd, "rb", buffering=0)
+            os.close(fd)
+    except FileNotFoundError:
+        raise InputError(Problem(file, f"file not found (looked for {target.absolute()})",
+                                 key=key)) from None
+    except PermissionError:
+        raise InputError(Problem(file, "cannot be read: permission denied", key=key)) from None
+    except OSError as exc:
+        reason = exc.strerror or str(exc)
+        raise InputError(Problem(file, f"cannot be read: {reason}", key=key)) from None
+    if kind == "a folder":
+        raise InputError(Problem(file, "is a folder, not a CSV file", key=key))
+    raise InputError(Problem(file, f"is {kind}, not a CSV file; the data must be a regular "
+                             "file", key=key))
+
+
+def _read_full(handle: BinaryIO, size: int) -> bytes:
+    """Up to ``size`` bytes (fewer only at the end of the file)."""
+    parts, wanted = [], size
+    while wanted > 0:
+        part = handle.read(wanted)
+        if not part:
+            break
+        parts.append(part)
+        wanted -= len(part)
+    return parts[0] if len(parts) == 1 else b"".join(parts)
+
+
+@dataclass
+class _Scan:
+    """What the first pass over the bytes found."""
+
+    sha256: str
+    start: int  # where the text starts (after a byte-order mark)
+    end: int  # after its last byte that is not CR, LF, space or tab
+    has_text: bool  # a byte after the mark that is not ASCII whitespace
+    simple: bool  # no quote and no CR without LF in the text: lines are records
+    head: bytes  # the first two bytes
+    bad_utf8: tuple[int, int] | None = None  # (line, byte) of the first undecodable byte
+    nul_line: int | None = None
+
+
+def _scan(handle: BinaryIO) -> _Scan:
+    """One pass over the bytes in blocks: sha256, UTF-8 validity, the first NUL byte,
+    the first quote and the first CR not followed by LF, where the text ends."""
+    digest = hashlib.sha256()
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    offset = start = 0
+    head = b""
+    bad_utf8: tuple[int, int] | None = None  # (offset, byte) until the end, then (line, byte)
+    nul_at = -1
+    first_quote = first_bare_cr = -1
+    last_text = -1
+    has_text = pending_cr = False
+    while block := _read_full(handle, READ_BLOCK):
+        digest.update(block)
+        text = block
+        if offset == 0:
+            head = block[:2]
+            start = len(BOM) if block.startswith(BOM) else 0
+            text = block[start:]
+        if bad_utf8 is None:
+            pending = decoder.getstate()[0]
+            if pending or not block.isascii():
+                try:
+                    decoder.decode(block)
+                except UnicodeDecodeError as exc:
+                    bad_utf8 = (offset - len(pending) + exc.start, exc.object[exc.start])
+        if nul_at < 0 and (i := block.find(b"\x00")) >= 0:
+            nul_at = offset + i
+        if first_quote < 0 and (i := block.find(b'"')) >= 0:
+            first_quote = offset + i
+        if first_bare_cr < 0:
+            if pending_cr and not block.startswith(b"\n"):
+                first_bare_cr = offset - 1
+            elif b"\r" in block and (block.count(b"\r") - block.count(b"\r\n")
+                                     - block.endswith(b"\r")) > 0:
+                i = block.find(b"\r")
+                while block[i + 1] == 0x0A:
+                    i = block.find(b"\r", i + 1)
+                first_bare_cr = offset + i
+        pending_cr = block.endswith(b"\r")
+        if not has_text and text.strip():
+            has_text = True
+        kept = len(block.rstrip(b"\r\n \t")) if block[-1] in b"\r\n \t" else len(block)
+        if kept > 0:
+            last_text = offset + kept - 1
+        offset += len(block)
+    if bad_utf8 is None:
+        pending = decoder.getstate()[0]
+        try:
+            decoder.decode(b"", final=True)
+        except UnicodeDecodeError as exc:
+            bad_utf8 = (offset - len(pending) + exc.start, exc.object[exc.start])
+    if bad_utf8 is not None:
+        bad_utf8 = (_line_at(handle, bad_utf8[0]), bad_utf8[1])
+    nul_line = _line_at(handle, nul_at) if nul_at >= 0 and bad_utf8 is None else None
+    end = last_text + 1
+    simple = not (0 <= first_quote < end) and not (0 <= first_bare_cr < end)
+    return _Scan(digest.hexdigest(), start, max(end, start), has_text, simple, head,
+                 bad_utf8, nul_line)
+
+
+def _line_at(handle: BinaryIO, offset: int) -> int:
+    """The line (from 1) of the byte at ``offset``: line ends counted from the start."""
+    handle.seek(0)
+    lines = 1
+    while offset > 0 and (block := _read_full(handle, min(READ_BLOCK, offset))):
+        lines += block.count(b"\n")
+        offset -= len(block)
+    return lines
+
+
+def _check_text(scan: _Scan, file: str, problems: list[Problem]) -> None:
+    """Stop unless the bytes are UTF-8 text without NUL bytes that is not empty."""
+    if scan.bad_utf8 is not None:
+        line, byte = scan.bad_utf8
+        hint = "; it looks like UTF-16" if scan.head in (b"\xff\xfe", b"\xfe\xff") else ""
         problems.append(Problem(
-            file, f"is not UTF-8 text: byte 0x{raw[exc.start]:02X} on line {line} cannot be "
+            file, f"is not UTF-8 text: byte 0x{byte:02X} on line {line} cannot be "
             f"decoded{hint}; save the file as UTF-8", line=line))
-        raise InputError(problems) from None
-    if b"\x00" in raw:
-        line = raw[: raw.index(b"\x00")].count(b"\n") + 1
-        problems.append(Problem(file, "contains NUL bytes: it looks like a binary file, not "
-                                "CSV text", line=line))
         raise InputError(problems)
-    data = raw[len(BOM):] if raw.startswith(BOM) else raw
-    if not data.strip():
+    if scan.nul_line is not None:
+        problems.append(Problem(file, "contains NUL bytes: it looks like a binary file, not "
+                                "CSV text", line=scan.nul_line))
+        raise InputError(problems)
+    if not scan.has_text:
         problems.append(Problem(file, "is empty: there is no header and no data"))
         raise InputError(problems)
-    return data.rstrip(b"\r\n \t") + b"\n"
 
 
 @dataclass
 class _Table:
     header: list[str]
-    columns: list[np.ndarray]
+    columns: list[_Factorised]
     data_rows: int
     locate: Callable[[np.ndarray], np.ndarray]
 
 
-def _parse_csv(body: bytes, file: str, problems: list[Problem]) -> _Table:
-    """Header, field-count check and the columns as object arrays of raw strings.
+def _body_blocks(handle: BinaryIO, scan: _Scan) -> Iterator[bytes]:
+    """The text (``start`` to ``end``) in blocks, then the final line end."""
+    handle.seek(scan.start)
+    remaining = scan.end - scan.start
+    while remaining > 0:
+        block = _read_full(handle, min(READ_BLOCK, remaining))
+        if not block:
+            raise OSError(errno.EIO, "the file became shorter while it was being read")
+        remaining -= len(block)
+        yield block
+    yield b"\n"
 
-    ``body`` is UTF-8 and ends with its last non-blank line. Every line must have as many
-    fields as the header; a blank line in a one-column file is one empty (missing) value.
+
+class _Lines:
+    """The text's lines as strings (line ends kept) for the csv module, read block by
+    block; the bytes of the lines handed out are kept until :meth:`take`."""
+
+    def __init__(self, blocks: Iterator[bytes]) -> None:
+        self._blocks = blocks
+        self._buffer = b""
+        self._pos = 0
+        self.kept: list[bytes] = []
+        self.kept_size = 0
+
+    def __iter__(self) -> _Lines:
+        return self
+
+    def __next__(self) -> str:
+        end = self._buffer.find(b"\n", self._pos)
+        while end < 0:
+            block = next(self._blocks, None)
+            if block is None:
+                raise StopIteration
+            self._buffer = self._buffer[self._pos:] + block
+            self._pos = 0
+            end = self._buffer.find(b"\n")
+        line = self._buffer[self._pos:end + 1]
+        self._pos = end + 1
+        self.kept.append(line)
+        self.kept_size += len(line)
+        return line.decode("utf-8")
+
+    def rest(self) -> bytes:
+        """The bytes read but not yet handed out as lines."""
+        rest = self._buffer[self._pos:]
+        self._buffer, self._pos = b"", 0
+        return rest
+
+    def take(self) -> bytes:
+        data = b"".join(self.kept)
+        self.kept, self.kept_size = [], 0
+        return data
+
+
+class _FieldCounts:
+    """Records whose field count differs from the header's: the first few, and how many."""
+
+    def __init__(self, width: int) -> None:
+        self.width = width
+        self.total = 0
+        self.first: list[tuple[int, int]] = []  # (line, fields)
+
+    def add(self, lines: np.ndarray, counts: np.ndarray) -> None:
+        self.total += len(lines)
+        room = _SHOWN_BAD_LINES + 1 - len(self.first)
+        self.first.extend((int(a), int(b)) for a, b in zip(lines[:room], counts[:room],
+                                                           strict=True))
+
+    def problems(self, file: str) -> list[Problem]:
+        width = self.width
+        out = []
+        for line, count in self.first[:_SHOWN_BAD_LINES]:
+            what = "is blank" if count == 0 else f"has {_plural(count, 'field')}"
+            out.append(Problem(
+                file, f"line {line} {what}, but the header has {_plural(width, 'field')}",
+                line=line))
+        if self.total > _SHOWN_BAD_LINES:
+            more = self.total - _SHOWN_BAD_LINES
+            out.append(Problem(
+                file, f"and {more:,} more {'line' if more == 1 else 'lines'} with a different "
+                f"number of fields than the header ({width})", line=self.first[-1][0]))
+        return out
+
+
+def _parse_body(handle: BinaryIO, scan: _Scan, file: str, problems: list[Problem]) -> _Table:
+    """The header and the columns, parsed block by block into small-integer codes.
+
+    Every record must have as many fields as the header (a blank line in a one-column
+    file is one empty value); lines are records unless a field is quoted, and then the
+    csv module finds the records and their first lines. The values of each block of
+    whole records are read by pandas' C parser.
     """
+    blocks = _body_blocks(handle, scan)
+    lines = _Lines(blocks)
+    reader = csv.reader(lines, strict=True)
     try:
-        header = next(csv.reader(_text_lines(body), strict=True))
+        header = next(reader)
     except csv.Error as exc:
         problems.append(Problem(file, f"the header (line 1) could not be read as CSV: {exc}",
                                 line=1))
         raise InputError(problems) from None
+    header_bytes = lines.take()
     width = len(header)
     if width == 0 or (width == 1 and not header[0].strip()):
         problems.append(Problem(file, "the header (line 1) is blank; the first line must name "
                                 "the columns", line=1))
         raise InputError(problems)
-    simple = b'"' not in body and body.count(b"\r") == body.count(b"\r\n")
-    if simple:
-        fields, starts = _field_counts_simple(body)
+    parser = _BlockParser(header_bytes, width, scan.end - scan.start)
+    if scan.simple:
+        rows, locate = _simple_records(lines, blocks, parser)
     else:
-        fields, starts = _field_counts_quoted(body, file, problems)
-    data_fields = fields[1:]
-    if width == 1:
-        data_fields = np.where(data_fields == 0, 1, data_fields)
-    bad = np.flatnonzero(data_fields != width)
-    if bad.size:
-        for row in bad[:_SHOWN_BAD_LINES]:
-            line = int(starts[row + 1])
-            count = int(data_fields[row])
-            what = "is blank" if count == 0 else f"has {_plural(count, 'field')}"
-            problems.append(Problem(
-                file, f"line {line} {what}, but the header has {_plural(width, 'field')}",
-                line=line))
-        if bad.size > _SHOWN_BAD_LINES:
-            more = bad.size - _SHOWN_BAD_LINES
-            problems.append(Problem(
-                file, f"and {more:,} more {'line' if more == 1 else 'lines'} with a different "
-                f"number of fields than the header ({width})",
-                line=int(starts[bad[_SHOWN_BAD_LINES] + 1])))
+        rows, locate = _quoted_records(lines, reader, header_bytes, parser, file, problems)
+    problems.extend(parser.counts.problems(file))
+    if parser.counts.total:
         raise InputError(problems)
-    data_rows = len(data_fields)
-    if data_rows == 0:
-        return _Table(header, [], 0, lambda rows: rows + 2)
-    try:
-        frame = pandas.read_csv(
-            io.BytesIO(body), encoding="utf-8", header=0, names=list(range(width)), dtype=object,
-            keep_default_na=False, na_filter=False, skip_blank_lines=False, index_col=False,
-            engine="c")
-    except (pandas.errors.ParserError, ValueError) as exc:
-        reason = str(exc).split("C error: ")[-1].strip()
-        problems.append(Problem(file, f"could not be read as CSV: {reason}"))
-        raise InputError(problems) from None
-    if len(frame) != data_rows:
-        problems.append(Problem(file, f"could not be read as CSV consistently: found {data_rows:,}"
-                                f" records, but the CSV reader read {len(frame):,} rows"))
+    if parser.failure is not None:
+        problems.append(Problem(file, f"could not be read as CSV: {parser.failure}"))
         raise InputError(problems)
-    columns = [frame[j].to_numpy(dtype=object) for j in range(width)]
-    data_starts = starts[1:]
-    return _Table(header, columns, data_rows, lambda rows: data_starts[rows])
+    if parser.rows != rows:
+        problems.append(Problem(file, f"could not be read as CSV consistently: found {rows:,}"
+                                f" records, but the CSV reader read {parser.rows:,} rows"))
+        raise InputError(problems)
+    return _Table(header, parser.columns() if rows else [], rows, locate)
 
 
-def _field_counts_simple(body: bytes) -> tuple[np.ndarray, np.ndarray]:
-    """Fields per line and each line's number, when no field is quoted (vectorised)."""
-    buf = np.frombuffer(body, dtype=np.uint8)
-    ends = np.flatnonzero(buf == 0x0A)  # body ends with "\n": one end per line
-    begins = np.concatenate(([0], ends[:-1] + 1))
-    commas = np.flatnonzero(buf == 0x2C)
-    fields = np.bincount(np.searchsorted(ends, commas), minlength=len(ends)) + 1
-    length = ends - begins
-    has_cr = np.zeros(len(ends), dtype=bool)
-    nonempty = length > 0
-    has_cr[nonempty] = buf[ends[nonempty] - 1] == 0x0D
-    fields[(length - has_cr) == 0] = 0
-    return fields.astype(np.int64), np.arange(1, len(ends) + 1, dtype=np.int64)
+def _simple_records(lines: _Lines, blocks: Iterator[bytes],
+                    parser: _BlockParser) -> tuple[int, Callable[[np.ndarray], np.ndarray]]:
+    """Lines are records: each block of whole lines is parsed and its field counts
+    checked (exactly, by the commas on each line, when the quick check fails)."""
+    carry = lines.rest()
+    line = 2
+    with ThreadPoolExecutor(max_workers=1) as helper:
+        for block in blocks:
+            data = carry + block
+            cut = data.rfind(b"\n") + 1
+            if cut == 0:
+                carry = data
+                continue
+            part, carry = data[:cut], data[cut:]
+            line += parser.simple_block(part, line, helper)
+    return line - 2, lambda rows: rows + 2
 
 
-def _field_counts_quoted(body: bytes, file: str,
-                         problems: list[Problem]) -> tuple[np.ndarray, np.ndarray]:
-    """Fields per record and the line each starts on, when quoted fields may span lines.
-
-    A Python loop over the records: only files with quotes take this path.
-    """
-    reader = csv.reader(_text_lines(body), strict=True)
-    fields: list[int] = []
-    starts: list[int] = []
-    previous = 0
+def _quoted_records(lines: _Lines, reader: Any, header_bytes: bytes, parser: _BlockParser,
+                    file: str, problems: list[Problem]
+                    ) -> tuple[int, Callable[[np.ndarray], np.ndarray]]:
+    """Records found by the csv module (a quoted field may span lines), with their
+    first lines; a block of whole records goes to the parser once it is large enough."""
+    previous = reader.line_num
+    rows = 0
+    block_rows = 0
+    break_rows: list[int] = [0]
+    break_extra: list[int] = [previous - 1]
+    extra = previous - 1
+    bad_lines: list[int] = []
+    bad_counts: list[int] = []
     try:
         for record in reader:
-            starts.append(previous + 1)
-            fields.append(len(record))
+            first = previous + 1
+            count = len(record)
+            if count != parser.width and not (parser.width == 1 and count == 0):
+                bad_lines.append(first)
+                bad_counts.append(count)
             previous = reader.line_num
+            rows += 1
+            block_rows += 1
+            if previous > first:
+                extra += previous - first
+                break_rows.append(rows)
+                break_extra.append(extra)
+            if lines.kept_size >= READ_BLOCK:
+                parser.counts.add(np.array(bad_lines, dtype=np.int64),
+                                  np.array(bad_counts, dtype=np.int64))
+                bad_lines, bad_counts = [], []
+                parser.quoted_block(lines.take(), block_rows)
+                block_rows = 0
     except csv.Error as exc:
         line = previous + 1
         problems.append(Problem(file, f"could not be read as CSV from line {line} on: {exc}",
                                 line=line))
         raise InputError(problems) from None
-    return np.array(fields, dtype=np.int64), np.array(starts, dtype=np.int64)
+    parser.counts.add(np.array(bad_lines, dtype=np.int64), np.array(bad_counts, dtype=np.int64))
+    if block_rows:
+        parser.quoted_block(lines.take(), block_rows)
+    starts = np.array(break_rows, dtype=np.int64)
+    extras = np.array(break_extra, dtype=np.int64)
+
+    def locate(positions: np.ndarray) -> np.ndarray:
+        where = np.searchsorted(starts, positions, side="right") - 1
+        return np.asarray(positions) + 2 + extras[where]
+
+    return rows, locate
 
 
-def _text_lines(body: bytes) -> Iterator[str]:
-    """The lines of ``body`` as text, line ends kept, without copying the whole file."""
-    start, size = 0, len(body)
-    while start < size:
-        end = body.find(b"\n", start)
-        end = size if end < 0 else end + 1
-        yield body[start:end].decode("utf-8")
-        start = end
+class _BlockParser:
+    """Blocks of whole records -> per-column codes of the distinct raw values.
+
+    Each column keeps a dictionary from raw value to code (in order of first sight) and
+    one array of its rows' codes, in the narrowest unsigned type; pandas parses a block's
+    values (as categories, or as text where pandas would read the categories as numbers
+    or booleans). Once a record is found with a wrong field count, or pandas fails, no
+    value is parsed any more; the field counts are still checked to the end.
+    """
+
+    def __init__(self, header_bytes: bytes, width: int, text_bytes: int) -> None:
+        self.header = header_bytes
+        self.width = width
+        self.text_bytes = max(1, text_bytes)  # to size the code arrays from the first blocks
+        self.parsed_bytes = 0
+        self.filled = 0  # rows whose codes are stored
+        self.counts = _FieldCounts(width)
+        self.failure: str | None = None
+        self.rows = 0  # rows pandas read
+        self.lookups: list[dict[str, int]] = [{} for _ in range(width)]
+        self.stores: list[np.ndarray | None] = [None] * width
+        self.as_text = [False] * width
+        self.encoding = True  # False once pandas and the record count disagree
+
+    @property
+    def parsing(self) -> bool:
+        """Whether blocks are still parsed (no wrong field count, no parser failure)."""
+        return self.counts.total == 0 and self.failure is None
+
+    def simple_block(self, part: bytes, first_line: int, helper: ThreadPoolExecutor) -> int:
+        """Lines ``first_line`` on (no quotes; returns how many): the quick check that
+        every line has the header's width (in ``helper``, while pandas parses the
+        block), else every line's fields counted."""
+        frame = None
+        if self.parsing:
+            check = helper.submit(_all_lines_have_width, part, self.width)
+            frame = self._frame(part)
+            count, good = check.result()
+            if good and frame is not None and len(frame) == count:
+                self.rows += count
+                if self.encoding:
+                    self._encode(frame, part)
+                return count
+        fields = _fields_per_line(part)
+        if self.width == 1:
+            fields = np.where(fields == 0, 1, fields)
+        bad = np.flatnonzero(fields != self.width)
+        self.counts.add(bad + first_line, fields[bad])
+        if frame is not None and not bad.size:  # the counts are right, pandas read otherwise
+            self.rows += len(frame)
+            self.encoding = False
+        return len(fields)
+
+    def quoted_block(self, part: bytes, records: int) -> None:
+        """Whole records (their field counts already checked) of a file with quotes."""
+        if not self.parsing:
+            return
+        frame = self._frame(part)
+        if frame is None:
+            return
+        self.rows += len(frame)
+        if len(frame) != records:
+            self.encoding = False
+        if self.encoding:
+            self._encode(frame, part)
+
+    def _frame(self, part: bytes, columns: list[int] | None = None) -> pandas.DataFrame | None:
+        """The block's values: categories, or text for ``columns`` (None, with
+        :attr:`failure` set, when pandas cannot read it)."""
+        dtype: Any = object if columns is not None else {
+            j: object if self.as_text[j] else "category" for j in range(self.width)}
+        try:
+            with warnings.catch_warnings():  # a block may be parsed before its counts fail
+                warnings.simplefilter("ignore", pandas.errors.ParserWarning)
+                return pandas.read_csv(
+                    io.BytesIO(self.header + part), encoding="utf-8", header=0,
+                    names=list(range(self.width)), usecols=columns, dtype=dtype,
+                    keep_default_na=False, na_filter=False, skip_blank_lines=False,
+                    index_col=False, engine="c")
+        except (pandas.errors.ParserError, ValueError) as exc:
+            self.failure = str(exc).split("C error: ")[-1].strip()
+            return None
+
+    def _encode(self, frame: pandas.DataFrame, part: bytes) -> None:
+        """Add a block's codes. A column whose categories pandas turned into numbers or
+        booleans ("01" and "1" would both be 1) is read again as text, and as text in
+        every later block."""
+        retry = [j for j in range(self.width) if not self.as_text[j]
+                 and pandas.api.types.infer_dtype(frame.iloc[:, j].cat.categories,
+                                                  skipna=False) != "string"]
+        again = self._frame(part, retry) if retry else None
+        if retry and again is None:
+            return
+        self.parsed_bytes += len(part)
+        start = self.filled
+        for j in range(self.width):
+            codes: np.ndarray
+            if j in retry or self.as_text[j]:
+                source = again.iloc[:, retry.index(j)] if again is not None and j in retry \
+                    else frame.iloc[:, j]
+                codes, uniques = pandas.factorize(source.to_numpy(dtype=object))
+                labels = list(uniques)
+            else:
+                column = frame.iloc[:, j]
+                codes = column.cat.codes.to_numpy()
+                labels = column.cat.categories.tolist()
+            lookup = self.lookups[j]
+            lut = np.fromiter((lookup.setdefault(label, len(lookup)) for label in labels),
+                              dtype=np.int64, count=len(labels))
+            self._store(j, lut.astype(_narrowest(len(lookup)))[codes], start)
+        self.filled = start + len(frame)
+        for j in retry:
+            self.as_text[j] = True
+
+    def _store(self, j: int, codes: np.ndarray, start: int) -> None:
+        """Put a block's codes of column ``j`` at row ``start``. Each column's codes live
+        in one array in anonymous memory, sized from the share of the text read so far
+        (pages never written cost nothing) and grown, or widened, by copying."""
+        store, need = self.stores[j], start + len(codes)
+        if store is None or len(store) < need or store.dtype.itemsize < codes.dtype.itemsize:
+            estimate = int(need * self.text_bytes / max(1, self.parsed_bytes) * 1.1) + 1024
+            size = max(need, estimate, 2 * len(store) if store is not None else 0)
+            dtype = codes.dtype if store is None or codes.dtype.itemsize > store.dtype.itemsize \
+                else store.dtype
+            grown = _anonymous_array(size, dtype)
+            if store is not None:
+                grown[:start] = store[:start]
+            self.stores[j] = store = grown
+        store[start:need] = codes
+
+    def columns(self) -> list[_Factorised]:
+        """Each column's codes (one array) and its distinct raw values."""
+        out = []
+        for j in range(self.width):
+            store, self.stores[j] = self.stores[j], None
+            raw = store[:self.filled] if store is not None else np.zeros(0, np.uint8)
+            out.append(_Factorised(raw, list(self.lookups[j])))
+            self.lookups[j] = {}
+        return out
+
+
+def _anonymous_array(size: int, dtype: Any) -> np.ndarray:
+    """A writable array of ``size`` items in its own anonymous memory map: its pages are
+    taken when first written and given back to the system when it is freed."""
+    itemsize = np.dtype(dtype).itemsize
+    return np.frombuffer(mmap.mmap(-1, max(1, size * itemsize)), dtype=dtype, count=size)
+
+
+def _narrowest(distinct: int) -> type[np.unsignedinteger[Any]]:
+    if distinct <= 1 << 8:
+        return np.uint8
+    if distinct <= 1 << 16:
+        return np.uint16
+    return np.uint32
+
+
+def _all_lines_have_width(part: bytes, width: int) -> tuple[int, bool]:
+    """The number of lines in ``part`` (whole lines, no quotes) and whether each has
+    ``width`` fields (a blank line counts as one in a one-column file): the commas,
+    taken ``width - 1`` at a time, must each fall between their line's ends."""
+    buf = np.frombuffer(part, dtype=np.uint8)
+    ends = np.flatnonzero(buf == 0x0A)
+    count = int(ends.size)
+    commas = np.flatnonzero(buf == 0x2C)
+    if width == 1 or commas.size != (width - 1) * count:
+        return count, commas.size == 0 and width == 1
+    groups = commas.reshape(count, width - 1)
+    return count, bool((groups[1:, 0] > ends[:-1]).all() and (groups[:, -1] < ends).all())
+
+
+def _fields_per_line(part: bytes) -> np.ndarray:
+    """Fields on each line of ``part`` (whole lines, no quotes): commas + 1, and 0 for a
+    blank line (empty, or a lone CR)."""
+    buf = np.frombuffer(part, dtype=np.uint8)
+    marks = np.flatnonzero((buf == 0x2C) | (buf == 0x0A))
+    ends_at = np.flatnonzero(buf[marks] == 0x0A)
+    fields = np.diff(ends_at, prepend=-1).astype(np.int64)
+    ends = marks[ends_at]
+    begins = np.concatenate(([0], ends[:-1] + 1))
+    length = ends - begins
+    has_cr = np.zeros(len(ends), dtype=bool)
+    nonempty = length > 0
+    has_cr[nonempty] = buf[ends[nonempty] - 1] == 0x0D
+    fields[(length - has_cr) == 0] = 0
+    return fields
 
 
 def _column_names(labels: Sequence[str], file: str, where: str,
@@ -466,27 +868,42 @@ class _Encoded:
 
 
 @dataclass
+class _Factorised:
+    """One column's distinct raw values (None: missing in a frame) and, per row, the
+    position of its value among them (an unsigned or intp array)."""
+
+    raw_codes: np.ndarray
+    uniques: list[Any]
+
+
+@dataclass
 class _Column:
     """One column factorised on its raw values: ``labels[raw_codes[r]]`` is row r's label."""
 
-    raw_codes: np.ndarray  # intp, one per row
+    raw_codes: np.ndarray  # one per row: intp, or the narrowest unsigned type
     labels: list[str | None]  # stripped label per raw unique; None = missing
     declared: tuple[str, ...] | None
 
 
-def _factorise(values: np.ndarray, declared: tuple[str, ...] | None) -> _Column:
-    """Factorise raw values, strip the (few) distinct ones, and mark the missing ones."""
+def _factorise(values: np.ndarray) -> _Factorised:
+    """Factorise an in-memory column (None and NaN become one missing value)."""
     raw_codes, uniques = pandas.factorize(values, use_na_sentinel=True)
-    spellings = set(MISSING_SPELLINGS) - set(declared or ())
-    labels: list[str | None] = []
-    for unique in uniques:
-        label = str(unique).strip()
-        labels.append(None if label in spellings else label)
+    labels: list[Any] = list(uniques)
     raw_codes = np.asarray(raw_codes, dtype=np.intp)
     if (raw_codes < 0).any():  # None or NaN in an in-memory frame
         raw_codes = np.where(raw_codes < 0, len(labels), raw_codes)
         labels.append(None)
-    return _Column(raw_codes, labels, declared)
+    return _Factorised(raw_codes, labels)
+
+
+def _labelled(column: _Factorised, declared: tuple[str, ...] | None) -> _Column:
+    """Strip the (few) distinct raw values and mark the missing ones."""
+    spellings = set(MISSING_SPELLINGS) - set(declared or ())
+    labels: list[str | None] = []
+    for unique in column.uniques:
+        label = None if unique is None else str(unique).strip()
+        labels.append(None if label is None or label in spellings else label)
+    return _Column(column.raw_codes, labels, declared)
 
 
 @dataclass
@@ -516,7 +933,9 @@ class _EncodedColumn:
     kind: str
     reason: str
     states: tuple[str, ...]
-    codes: np.ndarray
+    rows: int
+    raw: np.ndarray | None = None  # per row, an index into ``lut`` (None: all codes 0)
+    lut: np.ndarray | None = None  # the state code of each raw label
     numbers: np.ndarray | None = None
 
 
@@ -526,7 +945,7 @@ _MISSING_CODE, _UNDECLARED_CODE = -1, -2
 
 def _encode_columns(
     names: Sequence[str],
-    columns: Sequence[np.ndarray],
+    columns: list[_Factorised],
     *,
     file: str,
     locate: Callable[[np.ndarray], np.ndarray],
@@ -538,19 +957,26 @@ def _encode_columns(
     kinds: Mapping[str, str] | None = None,
 ) -> _Encoded:
     """Check and encode the columns: missing values, then each column's kind, states and
-    codes; every problem is collected in ``_Encoded.problems``."""
+    codes; every problem is collected in ``_Encoded.problems``. The columns are
+    released one by one as they are encoded (``columns`` is emptied): memory holds the
+    raw codes and the code matrix, never a second copy of all of them."""
     report = _Report(file, locate, unit, key_prefix)
-    parsed = _parse_columns(names, columns, declared or {}, report)
-    n_rows = len(columns[0]) if columns else 0
-    keep = _rows_to_keep(names, parsed, n_rows, missing, report)
+    n_rows = len(columns[0].raw_codes) if columns else 0
+    labelled = _parse_columns(names, columns, declared or {}, report)
+    keep = _rows_to_keep(names, labelled, n_rows, missing, report)
+    parsed: list[_Column | None] = list(labelled)
+    del labelled
     dropped = int(n_rows - keep.sum())
     if dropped and not _report_dropped(n_rows, dropped, report):
         return _Encoded((), np.zeros((len(names), 0), np.uint8), dropped, (), report.problems)
     kept_rows = np.flatnonzero(keep) if dropped else None
     encoded = []
-    for name, col in zip(names, parsed, strict=True):
+    for i, name in enumerate(names):
+        col, parsed[i] = parsed[i], None
+        assert col is not None
         column = _encode_column(name, col, (kinds or {}).get(name), max_states, kept_rows,
                                 report)
+        del col
         if column is not None:
             encoded.append(column)
     if report.failed():
@@ -559,9 +985,10 @@ def _encode_columns(
     return _assemble(encoded, dropped, report)
 
 
-def _parse_columns(names: Sequence[str], columns: Sequence[np.ndarray],
+def _parse_columns(names: Sequence[str], columns: list[_Factorised],
                    declared: Mapping[str, Sequence[str]], report: _Report) -> list[_Column]:
-    """Each column factorised, its declared states (if any) checked."""
+    """Each column labelled, its declared states (if any) checked (``columns`` is
+    emptied)."""
     parsed = []
     for name, values in zip(names, columns, strict=True):
         states = declared.get(name)
@@ -569,7 +996,8 @@ def _parse_columns(names: Sequence[str], columns: Sequence[np.ndarray],
             states = tuple(states)
             report.problems.extend(_declared_problems(name, states, report.file,
                                                       report.key_prefix))
-        parsed.append(_factorise(values, states))
+        parsed.append(_labelled(values, states))
+    columns.clear()
     return parsed
 
 
@@ -652,8 +1080,7 @@ def _continuous_column(name: str, col: _Column, raw: np.ndarray, numbers: np.nda
         return None
     reason = "declared" if declared_kind else "inferred-numeric-many-values"
     _warn_if_constant(name, seen, report)
-    return _EncodedColumn("continuous", reason, (), np.zeros(len(raw), dtype=np.uint8),
-                          numbers[raw])
+    return _EncodedColumn("continuous", reason, (), len(raw), numbers=numbers[raw])
 
 
 def _discrete_column(name: str, col: _Column, raw: np.ndarray, declared_kind: str | None,
@@ -670,14 +1097,15 @@ def _discrete_column(name: str, col: _Column, raw: np.ndarray, declared_kind: st
             f"{MAX_ENCODABLE_STATES:,} that can be encoded", key=name))
         return None
     _warn_if_constant(name, seen, report)
-    codes = _state_codes(col, raw, states)
-    bad = codes == _UNDECLARED_CODE
-    if bad.any():
+    lut = _state_lut(col, states)
+    bad_label = lut == _UNDECLARED_CODE
+    bad = bad_label[raw] if bad_label.any() else None
+    if bad is not None and bad.any():
         report.problems.append(_undeclared_problem(
             name, states, col, raw, bad, report.file, report.locate, kept_rows, report.unit,
             report.key_prefix))
         return None
-    return _EncodedColumn("discrete", reason, states, codes)
+    return _EncodedColumn("discrete", reason, states, len(raw), raw, lut)
 
 
 def _discrete_reason(col: _Column, declared_kind: str | None, seen: list[str]) -> str:
@@ -720,13 +1148,12 @@ def _warn_if_constant(name: str, seen: list[str], report: _Report) -> None:
             severity="warning"))
 
 
-def _state_codes(col: _Column, raw: np.ndarray, states: tuple[str, ...]) -> np.ndarray:
-    """Each row's index into ``states`` (int64); :data:`_MISSING_CODE` for a missing value,
-    :data:`_UNDECLARED_CODE` for a label that is not a state."""
+def _state_lut(col: _Column, states: tuple[str, ...]) -> np.ndarray:
+    """Each raw label's index into ``states`` (int64); :data:`_MISSING_CODE` for a missing
+    value, :data:`_UNDECLARED_CODE` for a label that is not a state."""
     index = {s: i for i, s in enumerate(states)}
-    lut = np.array([_MISSING_CODE if label is None else index.get(label, _UNDECLARED_CODE)
-                    for label in col.labels], dtype=np.int64)
-    return lut[raw]
+    return np.array([_MISSING_CODE if label is None else index.get(label, _UNDECLARED_CODE)
+                     for label in col.labels], dtype=np.int64)
 
 
 def _assemble(encoded: Sequence[_EncodedColumn], dropped: int, report: _Report) -> _Encoded:
@@ -734,9 +1161,13 @@ def _assemble(encoded: Sequence[_EncodedColumn], dropped: int, report: _Report) 
     column is continuous, the values matrix (NaN rows for discrete columns)."""
     widest = max(len(c.states) for c in encoded)
     dtype = np.uint8 if widest <= 256 else np.uint16
-    matrix = np.empty((len(encoded), len(encoded[0].codes)), dtype=dtype)
+    matrix = np.empty((len(encoded), encoded[0].rows), dtype=dtype)
     for i, column in enumerate(encoded):
-        matrix[i] = column.codes
+        if column.raw is None or column.lut is None:
+            matrix[i] = 0
+        else:
+            np.take(column.lut.astype(dtype), column.raw, out=matrix[i], mode="clip")
+        column.raw = None  # released column by column while the matrix fills
     matrix.flags.writeable = False
     kinds = tuple(c.kind for c in encoded)
     reasons = tuple(c.reason for c in encoded)

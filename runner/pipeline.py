@@ -99,6 +99,9 @@ def prepare(spec_path: str | Path | Mapping[str, Any], data_path: str | Path | N
         display = str(data_path) if data_display is None else data_display
     else:
         path, display, pin = spec.dataset_path(), ds.path, ds.sha256
+        outside = spec.dataset_outside_problem()  # --data is the user's own choice
+        if outside is not None:
+            raise InputError([*problems, outside])
     try:
         dataset = read_data(normalised_spec(spec), path, display, expected_sha256=pin)
     except InputError as exc:

@@ -455,7 +455,8 @@ def demo_spec_with_holdout(folder: Path, extra: str = "", holdout: float = 0.2,
     """specs/kiln-line.yaml with its data path made absolute, a fit block and an
     evaluation block (``holdout``, ``seed``), written to ``folder/kiln-line.yaml``."""
     text = (ROOT / "specs" / "kiln-line.yaml").read_text(encoding="utf-8")
-    text = text.replace("../datasets/", f"{ROOT / 'datasets'}/")
+    text = text.replace("  path: ../datasets/",  # outside the tmp folder: allowed explicitly
+                        f"  allow_outside: true\n  path: {ROOT / 'datasets'}/")
     text += f"fit: {{pseudo_count: 1.0}}\nevaluation: {{holdout: {holdout}, seed: {seed}}}\n"
     path = folder / "kiln-line.yaml"
     path.write_text(text + extra, encoding="utf-8")

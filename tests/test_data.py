@@ -4,7 +4,9 @@ line; the encoding (round trip, dtype, layout, determinism); the file hash."""
 from __future__ import annotations
 
 import hashlib
+import os
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas
@@ -74,15 +76,15 @@ def test_folder_is_not_a_file(tmp_path: Path) -> None:
 
 def test_unreadable_file(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     path = write(tmp_path, GOOD)
-    original = Path.read_bytes
+    original = os.open
 
-    def refuse(self: Path) -> bytes:
-        if self == path:
-            raise PermissionError(13, "Permission denied", str(self))
-        return original(self)
+    def refuse(target: Any, flags: int, *args: Any, **kwargs: Any) -> int:
+        if Path(target) == path:
+            raise PermissionError(13, "Permission denied", str(target))
+        return original(target, flags, *args, **kwargs)
 
     # chmod would not stop root, so the refusal is simulated.
-    monkeypatch.setattr(Path, "read_bytes", refuse)
+    monkeypatch.setattr(os, "open", refuse)
     p = only(problems_of(path, display_path="data.csv"))
     assert p.file == "data.csv" and p.key == "dataset.path"
     assert "permission denied" in p.message

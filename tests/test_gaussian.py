@@ -422,7 +422,8 @@ def test_one_learn_computes_the_statistics_once_and_stores_what_fresh_ones_give(
     root = Path(__file__).resolve().parents[1]
     text = (root / "specs" / "kiln-gauss.yaml").read_text(encoding="utf-8")
     spec = tmp_path / "kiln-gauss.yaml"
-    spec.write_text(text.replace("../datasets/", f"{root / 'datasets'}/")
+    spec.write_text(text.replace("  path: ../datasets/",
+                                  f"  allow_outside: true\n  path: {root / 'datasets'}/")
                     + "evaluation: {holdout: 0.25, seed: 4}\n", encoding="utf-8")
     prepared = prepare(spec)
     passes = []

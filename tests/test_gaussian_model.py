@@ -18,7 +18,8 @@ HOLDOUT, SEED = 0.25, 3
 def gauss_spec(folder: Path, extra: str = "") -> Path:
     """specs/kiln-gauss.yaml with an absolute data path and optional extra sections."""
     text = (ROOT / "specs" / "kiln-gauss.yaml").read_text(encoding="utf-8")
-    text = text.replace("../datasets/", f"{ROOT / 'datasets'}/")
+    text = text.replace("  path: ../datasets/",  # outside the tmp folder: allowed explicitly
+                        f"  allow_outside: true\n  path: {ROOT / 'datasets'}/")
     path = folder / "kiln-gauss.yaml"
     path.write_text(text + extra, encoding="utf-8")
     return path

@@ -25,6 +25,7 @@ from runner.search import (
 from runner.search.tabu import tabu_search
 
 ROOT = Path(__file__).resolve().parents[1]
+KILN_CSV = ROOT / "datasets" / "kiln-line.csv"
 
 
 def chained_data(seed: int, n: int = 6, rows: int = 400) -> np.ndarray:
@@ -132,8 +133,8 @@ def test_each_method_is_deterministic_across_processes(tmp_path: Path, method: s
     # one run in this process, its rerun in a separate one (another hash seed)
     spec = (ROOT / "specs" / "kiln-line.yaml").read_text()
     spec = spec.replace("method: hill-climb", f"method: {method}").replace(
-        "restarts: 0", "restarts: 1").replace("../datasets/kiln-line.csv",
-                                             str(ROOT / "datasets" / "kiln-line.csv"))
+        "restarts: 0", "restarts: 1").replace("  path: ../datasets/kiln-line.csv",
+                                             f"  allow_outside: true\n  path: {KILN_CSV}")
     (tmp_path / "spec.yaml").write_text(spec)
     outs = []
     for call in (cli, cli_process):
@@ -157,7 +158,7 @@ def test_exact_confirms_the_demo_optimum(tmp_path: Path, cli: CliCall) -> None:
     for method in ("hill-climb", "exact"):
         spec = (ROOT / "specs" / "kiln-line.yaml").read_text().replace(
             "method: hill-climb", f"method: {method}").replace(
-            "../datasets/kiln-line.csv", str(ROOT / "datasets" / "kiln-line.csv"))
+            "  path: ../datasets/kiln-line.csv", f"  allow_outside: true\n  path: {KILN_CSV}")
         (tmp_path / f"{method}.yaml").write_text(spec)
         result = cli("run", f"{method}.yaml", "--json", "--results", "r", cwd=tmp_path)
         assert result.returncode == 0, result.stderr

@@ -35,10 +35,14 @@ import yaml
 from pydantic import BaseModel, ValidationError
 
 from runner.errors import InputError, Problem
+from runner.files import special_file_kind
 from runner.spec.models import OPTIONAL_SECTIONS, PATTERN_HINTS, Spec, nearest_line
 from runner.spec.rules import overlaps, rule_problems
 
 _MAX_NODES = 200_000
+
+#: Largest spec file read (bytes); a larger one is refused by its size, unread.
+MAX_SPEC_BYTES = 1 << 20
 
 
 # --------------------------------------------------------------------------- public API
@@ -197,16 +201,35 @@ _SpecLoader.add_implicit_resolver(  # 1e-9 is a number too, not only 1.0e-9
 
 
 def _read_text(path: Path, file: str) -> tuple[str | None, list[Problem]]:
+    """The spec's text, once ``os.stat`` shows a regular file within :data:`MAX_SPEC_BYTES`:
+    a folder, a device or a FIFO is refused before it is opened (a FIFO would block the
+    open, ``/dev/zero`` never ends), and so is a larger file, before it is read."""
     try:
-        raw = path.read_bytes()
+        kind = special_file_kind(os.stat(path).st_mode)
+        if kind is not None:
+            return None, [Problem(file, f"is {kind}, not a spec file")]
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        with os.fdopen(fd, "rb", buffering=0) as handle:
+            info = os.fstat(fd)
+            kind = special_file_kind(info.st_mode)
+            if kind is not None:
+                return None, [Problem(file, f"is {kind}, not a spec file")]
+            parts: list[bytes] = []
+            left = 0 if info.st_size > MAX_SPEC_BYTES else MAX_SPEC_BYTES + 1
+            while left > 0 and (part := handle.read(left)):
+                parts.append(part)
+                left -= len(part)
+            raw = b"".join(parts)
+            size = max(info.st_size, len(raw))
     except FileNotFoundError:
         return None, [Problem(file, "no such spec file")]
-    except IsADirectoryError:
-        return None, [Problem(file, "is a folder, not a spec file")]
     except PermissionError:
         return None, [Problem(file, "the spec file cannot be read: permission denied")]
     except OSError as exc:
         return None, [Problem(file, f"the spec file cannot be read: {exc.strerror or exc}")]
+    if size > MAX_SPEC_BYTES:
+        return None, [Problem(file, f"the spec file is {size:,} bytes, more than the limit of "
+                              f"{MAX_SPEC_BYTES:,} bytes (1 MiB); a spec is a short YAML file")]
     try:
         return raw.decode("utf-8-sig"), []
     except UnicodeDecodeError as exc:

@@ -124,6 +124,10 @@ class DatasetSpec(_Section):
         "numeric column with more is continuous.")
     columns: dict[str, ColumnSpec] = Field(
         default_factory=dict, description="Optional per-column kind and state order.")
+    allow_outside: StrictBool = Field(
+        False, description="Whether the data file may lie outside the project folder (the "
+        "spec's folder, or its parent when that folder is named 'specs'); symlinks are "
+        "followed.")
 
 
 class ScoreSpec(BGeParams, BDeuParams, _Section):
@@ -306,6 +310,30 @@ class Spec(_Section):
         base = self._source_path.parent if self._source_path is not None else Path.cwd()
         return (base / self.dataset.path).resolve()
 
+    def project_folder(self) -> Path:
+        """The folder a data file must lie in unless ``dataset.allow_outside`` is true: the
+        parent of the spec's folder (a project keeps its specs in a folder of their own,
+        ``specs/`` or any other name, beside ``datasets/`` and ``results/``). Resolved,
+        symlinks followed."""
+        base = self._source_path.parent if self._source_path is not None else Path.cwd()
+        return base.resolve().parent
+
+    def dataset_outside_problem(self) -> Problem | None:
+        """A problem naming ``dataset.path`` when the data file resolves (symlinks
+        followed) outside :meth:`project_folder` and ``dataset.allow_outside`` is not true;
+        else None."""
+        if self.dataset.allow_outside:
+            return None
+        path, folder = self.dataset_path(), self.project_folder()
+        if path.is_relative_to(folder):
+            return None
+        return Problem(
+            self.file, f"the data file {path} lies outside the project folder {folder}; a "
+            "spec may read only files inside it, so that a spec from elsewhere cannot copy "
+            "any readable file into records and logs (set dataset.allow_outside: true if "
+            "this file is meant, or pass it with --data)",
+            line=self.line_of("dataset.path"), key="dataset.path", value=self.dataset.path)
+
 
 # --------------------------------------------------------------------------- the spec as data
 
@@ -319,6 +347,8 @@ def normalised_spec(spec: Spec, seed: int | None = None) -> dict[str, Any]:
         data.pop("tier_names", None)
     if isinstance(data.get("bootstrap"), dict) and data["bootstrap"].get("budget") is None:
         data["bootstrap"].pop("budget", None)  # older bootstrap specs keep their hash
+    if not data["dataset"].get("allow_outside"):  # absent when false: older specs keep their hash
+        data["dataset"].pop("allow_outside", None)
     if seed is not None:
         data["search"]["seed"] = seed
     return _sort_keys(data)
