@@ -1,8 +1,11 @@
 """Structural constraints as index arrays: which edges may exist, which must, the cap.
 
 Built from the spec's tiers, ``within_tier``, ``forbidden``, ``required`` and
-``parent_cap`` once the data's variable order is known. The move engine reads only
-this object, never the spec.
+``parent_cap`` once the data's variable order is known, and, under the mixed score
+(cg-bic), from the columns' kinds: a discrete variable may not have a continuous parent
+(conditional Gaussian networks: Lauritzen 1992, JASA 87(420); Bottcher 2001), so every edge
+continuous -> discrete is forbidden in the allowed-edge matrix, which every search method
+reads. The move engine reads only this object, never the spec.
 """
 
 from __future__ import annotations
@@ -52,12 +55,14 @@ def build_constraints(
     forbidden: Sequence[Sequence[str]] = (),
     required: Sequence[Sequence[str]] = (),
     parent_cap: int | None = None,
+    kinds: Sequence[str] | None = None,
 ) -> Constraints:
     """Constraints over ``names`` from tier lists and edge lists given by name.
 
     A variable in no tier is unconstrained by tiers. Edges from a later tier to an
     earlier one are never allowed; edges within a tier only when ``within_tier`` is
-    ``"allowed"``.
+    ``"allowed"``. With ``kinds`` (one per name, ``"discrete"`` or ``"continuous"``: the
+    mixed score's columns) no edge goes from a continuous variable into a discrete one.
     """
     index = {name: i for i, name in enumerate(names)}
     n = len(names)
@@ -75,5 +80,15 @@ def build_constraints(
         allowed &= ~(both & same)
     for a, b in forbidden:
         allowed[index[a], index[b]] = False
+    if kinds is not None:
+        allowed &= ~kind_forbidden(kinds)
     required_idx = frozenset((index[a], index[b]) for a, b in required)
     return Constraints(allowed=allowed, required=required_idx, parent_cap=parent_cap)
+
+
+def kind_forbidden(kinds: Sequence[str]) -> np.ndarray:
+    """``out[i, j]`` True when ``i`` is continuous and ``j`` discrete: the edges a
+    conditional Gaussian network may not have (a discrete child with a continuous
+    parent)."""
+    continuous = np.array([k == "continuous" for k in kinds], dtype=bool)
+    return continuous[:, None] & ~continuous[None, :]

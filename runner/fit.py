@@ -21,6 +21,15 @@ residual variance RSS / N, from the learning rows' means and scatter matrix
 (:func:`runner.scores.gaussian.linear_gaussian_parameters`); the child given its parents
 is then N(intercept + sum_p beta_p x_p, variance).
 
+Mixed tables under cg-bic (conditional linear Gaussian networks, see
+:mod:`runner.scores.conditional_gaussian`): a discrete child's table as above (its parents
+are discrete); a continuous child's regression on its continuous parents, one per
+configuration of its discrete parents that occurs in the learning rows (intercept,
+coefficients, ML variance, rows), computed exactly as the score computes it; a
+configuration with too few rows, or one the learning rows lack, gets the child's fit
+without parents (``unseen_configuration``). A continuous child without discrete parents is
+stored as under a Gaussian score.
+
 Every float that reaches ``model.json`` or ``run.json`` is the same on every machine:
 probabilities are (N_jk + a) / (N_j + r a) with an exact integer N_j; the
 linear-Gaussian parameters come from exact sufficient statistics and a fixed-order
@@ -40,6 +49,7 @@ from typing import Any
 import numpy as np
 
 from runner.data import Dataset
+from runner.scores.conditional_gaussian import ConfigurationFit, MixedData, continuous_fits
 from runner.scores.counts import COMPACT_ABOVE, configuration_codes
 from runner.scores.elementary import ln, ln_scalar
 from runner.scores.fixed_order import sum_floats
@@ -157,15 +167,111 @@ def gaussian_model_document(families: Sequence[LinearGaussianFamily],
             "data_sha256": data_sha256, "graph_sha256": graph_hash, "variables": variables}
 
 
+@dataclass(frozen=True)
+class ConditionalGaussianFamily:
+    """A continuous child's regressions, one per occurring configuration of its discrete
+    parents (``fits``), and the fit without parents for a configuration without one."""
+
+    child: int
+    discrete: tuple[int, ...]
+    continuous: tuple[int, ...]
+    possible: int
+    fits: tuple[ConfigurationFit, ...]
+    unseen: LinearGaussianFamily
+
+
+MixedFamily = DiscreteFamily | ConditionalGaussianFamily
+
+
+def mixed_data(dataset: Dataset) -> MixedData:
+    """The codes, values and kinds of a resolved mixed data set, for the CG fits."""
+    return MixedData(dataset.codes, dataset.arities, dataset.values,
+                     [dataset.kind(i) == "continuous" for i in range(len(dataset.names))])
+
+
+def fit_mixed(data: MixedData, parent_sets: Sequence[Sequence[int]]) -> list[MixedFamily]:
+    """Every family of a conditional Gaussian network, in column order: tables for
+    discrete children, per-configuration regressions for continuous ones."""
+    out: list[MixedFamily] = []
+    for child, ps in enumerate(parent_sets):
+        discrete, continuous = data.split(ps)
+        if not data.is_continuous(child):
+            if continuous:
+                raise ValueError("a discrete variable may not have continuous parents")
+            out.append(discrete_family(data.codes, data.arities, child, discrete))
+            continue
+        fits = continuous_fits(data, child, ps)
+        overall = data.overall
+        assert overall is not None
+        y = data.positions[child]
+        unseen = LinearGaussianFamily(overall.mean_values[y], (0.0,) * len(continuous),
+                                      overall.scatter_rows[y][y] / overall.n_rows)
+        out.append(ConditionalGaussianFamily(child, discrete, continuous,
+                                             data.possible(discrete), tuple(fits), unseen))
+    return out
+
+
+def _regression_entry(fam: LinearGaussianFamily, parents: Sequence[int],
+                      names: Sequence[str]) -> dict[str, Any]:
+    return {"intercept": fam.intercept,
+            "coefficients": {names[p]: b for p, b in zip(parents, fam.coefficients,
+                                                         strict=True)},
+            "residual_variance": fam.variance}
+
+
+def mixed_model_document(families: Sequence[MixedFamily], names: Sequence[str],
+                         states: Sequence[Sequence[str]], pseudo_count: float, rows: int,
+                         data_sha256: str, graph_hash: str) -> dict[str, Any]:
+    """The ``model.json`` document of a conditional Gaussian network (cg-bic)."""
+    tables = [f for f in families if isinstance(f, DiscreteFamily)]
+    document = model_document(tables, names, states, pseudo_count, rows, data_sha256,
+                              graph_hash)
+    variables = dict(document["variables"])
+    for fam in families:
+        if not isinstance(fam, ConditionalGaussianFamily):
+            continue
+        parents = [names[p] for p in sorted((*fam.discrete, *fam.continuous))]
+        if not fam.discrete:
+            variables[names[fam.child]] = {
+                "kind": "continuous", "parents": parents,
+                **_regression_entry(fam.fits[0].family, fam.continuous, names)}
+            continue
+        variables[names[fam.child]] = {
+            "kind": "continuous", "parents": parents,
+            "discrete_parents": [names[p] for p in fam.discrete],
+            "continuous_parents": [names[p] for p in fam.continuous],
+            "possible_configurations": fam.possible,
+            "configurations": [
+                {"parents": [states[p][s] for p, s in zip(fam.discrete, fit.states,
+                                                          strict=True)],
+                 "rows": fit.rows,
+                 "fit": "without parents (too few rows)" if fit.thin else "least-squares",
+                 **_regression_entry(fit.family, fam.continuous, names)}
+                for fit in fam.fits],
+            "unseen_configuration": _regression_entry(fam.unseen, fam.continuous, names),
+        }
+    document["variables"] = {name: variables[name] for name in names}
+    document["estimator"] = ("conditional-gaussian: least-squares per configuration, tables "
+                             + ("dirichlet-posterior-mean" if pseudo_count > 0
+                                else "maximum-likelihood"))
+    return document
+
+
 def fit_model(dataset: Dataset, gaussian: bool, parent_sets: Sequence[Sequence[int]],
               pseudo_count: float, graph_hash: str,
-              statistics: GaussianStatistics | None = None,
-              ) -> tuple[dict[str, Any], list[DiscreteFamily] | list[LinearGaussianFamily]]:
+              statistics: GaussianStatistics | None = None, mixed: bool = False,
+              ) -> tuple[dict[str, Any], list[DiscreteFamily] | list[LinearGaussianFamily]
+                         | list[MixedFamily]]:
     """The ``model.json`` document of a learned graph on ``dataset`` (the learning rows)
-    and the fitted families: linear-Gaussian under a Gaussian score, else tables.
+    and the fitted families: linear-Gaussian under a Gaussian score, conditional Gaussian
+    under the mixed score (``mixed``), else tables.
 
     ``statistics`` are the learning rows' (the scorer's), computed from
     ``dataset.values`` when not given."""
+    if mixed:
+        families = fit_mixed(mixed_data(dataset), parent_sets)
+        return mixed_model_document(families, dataset.names, dataset.states, pseudo_count,
+                                    dataset.rows, dataset.sha256, graph_hash), families
     if gaussian:
         source = dataset.values if statistics is None else statistics
         if source is None:

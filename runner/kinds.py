@@ -8,6 +8,11 @@
   continuous and unbinned; a discrete column among continuous ones is refused, naming
   the columns and the ways out. A constant column, or columns that are linear
   combinations of each other, make the covariance matrix singular and are refused too.
+* Under the mixed score (cg-bic) discrete columns stay discrete, continuous columns with
+  ``bins`` in the spec are cut into bins (they become discrete), and the other continuous
+  columns stay continuous, with the Gaussian scores' checks (constant, dependent columns)
+  applied to them. A table with no continuous column is then scored as ``bic``, one with
+  no discrete column as ``gaussian-bic``.
 
 :func:`resolve_columns` returns the data set ready for the score and the ``data.columns``
 block of the record (each column's kind, why, its states or bins); :func:`make_scorer`
@@ -28,7 +33,7 @@ from runner.binning import DEFAULT_BINNING, discretise
 from runner.data import Dataset
 from runner.errors import InputError, Problem
 from runner.registry import BGeParams, Params
-from runner.scores import FamilyScorer, build_gaussian_scorer, build_scorer
+from runner.scores import FamilyScorer, build_cg_scorer, build_gaussian_scorer, build_scorer
 from runner.scores.gaussian import bge_prior
 
 #: Smallest eigenvalue of the correlation matrix below which it counts as singular.
@@ -56,11 +61,18 @@ class Resolved:
 
 
 GAUSSIAN_SCORES = registry.scores_of_kind("continuous")
+MIXED_SCORES = registry.scores_of_kind("mixed")
 
 
 def is_gaussian(score_name: str) -> bool:
-    """Whether a score models continuous columns (the registry's ``data_kind``)."""
+    """Whether a score models continuous columns only (the registry's ``data_kind``)."""
     return score_name in GAUSSIAN_SCORES
+
+
+def is_mixed(score_name: str) -> bool:
+    """Whether a score takes discrete and continuous columns together (``data_kind``
+    mixed: cg-bic)."""
+    return score_name in MIXED_SCORES
 
 
 def resolve_columns(
@@ -83,8 +95,11 @@ def resolve_columns(
     name = str(score.get("name", "bic"))
     if is_gaussian(name):
         return _for_gaussian(dataset, columns_spec, score, spec_file, data_file, line_of)
-    return _for_discrete(dataset, columns_spec, name, spec_file, data_file, line_of,
-                         stored_bins or {}, stored_from)
+    resolved = _for_discrete(dataset, columns_spec, name, spec_file, data_file, line_of,
+                             stored_bins or {}, stored_from, keep_continuous=is_mixed(name))
+    if is_mixed(name):
+        _check_continuous(resolved, data_file)
+    return resolved
 
 
 def make_scorer(score: Mapping[str, Any], dataset: Dataset) -> FamilyScorer:
@@ -104,6 +119,21 @@ def gaussian_scorer(name: str, params: Params, dataset: Dataset) -> FamilyScorer
     if dataset.values is None:
         raise ValueError("a Gaussian score needs continuous columns")
     return build_gaussian_scorer(name, dataset.values, **params.arguments())
+
+
+def mixed_scorer(name: str, params: Params, dataset: Dataset) -> FamilyScorer:
+    """A conditional Gaussian scorer (the builder of cg-bic): discrete columns by their
+    codes, continuous ones by their values (the resolved data set's kinds; without kinds,
+    a column is continuous when it has finite values in every row)."""
+    n = int(dataset.codes.shape[0])
+    if hasattr(dataset, "kind"):
+        continuous = [dataset.kind(i) == "continuous" for i in range(n)]
+    else:
+        values = dataset.values
+        continuous = [values is not None and bool(np.isfinite(values[i]).all())
+                      for i in range(n)]
+    return build_cg_scorer(dataset.codes, dataset.arities, dataset.values, continuous,
+                           **params.arguments())
 
 
 def score_record(score: Mapping[str, Any], n_vars: int) -> dict[str, Any]:
@@ -137,7 +167,10 @@ def _column_key(name: str) -> str:
 def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]],
                   score_name: str, spec_file: str, data_file: str,
                   line_of: Callable[[str], int | None],
-                  stored: Mapping[str, Mapping[str, Any]], stored_from: str) -> Resolved:
+                  stored: Mapping[str, Mapping[str, Any]], stored_from: str,
+                  keep_continuous: bool = False) -> Resolved:
+    """Bin the continuous columns that have ``bins``; the others are problems, or, with
+    ``keep_continuous`` (the mixed score), stay continuous."""
     problems: list[Problem] = []
     warnings: list[Problem] = []
     record: dict[str, dict[str, Any]] = {}
@@ -145,6 +178,7 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
     codes = np.array(dataset.codes, copy=True) if dataset.values is not None else dataset.codes
     fingerprint: dict[str, list[float]] = {}
     unbinned: list[str] = []
+    kept: list[int] = []
     for i, name in enumerate(dataset.names):
         reason = dataset.kind_reason(i)
         if dataset.kind(i) == "discrete":
@@ -154,10 +188,18 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
         spec = columns_spec.get(name) or {}
         bins = spec.get("bins")
         key = _column_key(name)
+        if bins is None and keep_continuous and dataset.values is not None:
+            kept.append(i)
+            x = dataset.values[i]
+            record[name] = {"kind": "continuous", "kind_reason": reason, "states": [],
+                            "range": [float(x.min()), float(x.max())]}
+            continue
         if bins is None:
             ways = ("declare bins for it ({key}: {{kind: continuous, bins: 4, binning: "
                     "quantile}}), or drop the column from the data file, or use a Gaussian "
-                    "score (" + ", ".join(GAUSSIAN_SCORES) + ") if every column is continuous")
+                    "score (" + ", ".join(GAUSSIAN_SCORES) + ") if every column is continuous, "
+                    "or " + ", ".join(MIXED_SCORES) + " to model it as continuous beside "
+                    "discrete columns")
             if unbinned:
                 ways = f"declare bins for it, or drop it (as for {unbinned[0]!r})"
             unbinned.append(name)
@@ -200,13 +242,31 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
     widest = max((len(s) for s in states), default=1)
     matrix = np.ascontiguousarray(codes, dtype=np.uint8 if widest <= 256 else np.uint16)
     matrix.flags.writeable = False
-    kinds = tuple("discrete" for _ in dataset.names)
-    reasons = tuple(dataset.kind_reason(i) if dataset.kind(i) == "discrete" else "binned"
-                    for i in range(len(dataset.names)))
+    kinds = tuple("continuous" if i in kept else "discrete" for i in range(len(dataset.names)))
+    reasons = tuple(dataset.kind_reason(i) if dataset.kind(i) == "discrete" or i in kept
+                    else "binned" for i in range(len(dataset.names)))
+    values = None
+    if kept:
+        values = np.full(dataset.values.shape, np.nan)
+        values[kept] = dataset.values[kept]
+        values.flags.writeable = False
     ready = Dataset(dataset.path, dataset.sha256, dataset.names, tuple(states), matrix,
-                    dataset.dropped_rows, dataset.warnings, kinds, reasons, None)
+                    dataset.dropped_rows, dataset.warnings, kinds, reasons, values)
     text = json.dumps(fingerprint, sort_keys=True, separators=(",", ":")) if fingerprint else None
     return Resolved(ready, record, text, warnings)
+
+
+def _check_continuous(resolved: Resolved, data_file: str) -> None:
+    """The Gaussian scores' checks on the continuous columns a mixed score keeps:
+    constant columns, too few rows, linearly dependent columns (InputError)."""
+    data = resolved.dataset
+    kept = [i for i in range(len(data.names)) if data.kind(i) == "continuous"]
+    if not kept or data.values is None:
+        return
+    problems = _singular([data.names[i] for i in kept], data.values[kept], data.rows,
+                         data_file)
+    if problems:
+        raise InputError(problems)
 
 
 # --------------------------------------------------------------------------- Gaussian scores

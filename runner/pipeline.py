@@ -27,7 +27,14 @@ from runner.errors import InputError, Problem
 from runner.evaluation import SPLIT_RULE, gaussian_held_out_fit, held_out_fit, split_rows
 from runner.fit import DEFAULT_PSEUDO_COUNT, fit_model
 from runner.graph import edges_from_parents, graph_sha256
-from runner.kinds import Resolved, is_gaussian, make_scorer, resolve_columns, score_record
+from runner.kinds import (
+    Resolved,
+    is_gaussian,
+    is_mixed,
+    make_scorer,
+    resolve_columns,
+    score_record,
+)
 from runner.progress import SILENT, Progress, Reporter
 from runner.registry import RestartParams
 from runner.scores import FamilyScorer
@@ -36,7 +43,14 @@ from runner.search import Budget, MoveEngine, RunSummary, SearchOutcome, local_s
 from runner.search.budget import BUDGET_REASONS
 from runner.search.parent_sets import SearchRefused
 from runner.search.whole import PlanContext, SearchTask
-from runner.spec import Spec, check_spec_against_columns, load_spec, normalised_spec, spec_sha256
+from runner.spec import (
+    Spec,
+    check_required_kinds,
+    check_spec_against_columns,
+    load_spec,
+    normalised_spec,
+    spec_sha256,
+)
 from runner.spec.loader import DICT_ORIGIN, load_spec_dict
 from runner.store import find_twin, model_reference, read_baseline, trace_csv, write_run
 
@@ -123,13 +137,18 @@ def prepare(spec_path: str | Path | Mapping[str, Any], data_path: str | Path | N
                                 stored_from=stored_from)
     except InputError as exc:
         raise InputError(problems + exc.problems) from None
+    mixed = is_mixed(spec.score.name)
+    kinds = [resolved.dataset.kind(i) for i in range(len(resolved.dataset.names))]
+    if mixed:
+        problems += check_required_kinds(spec, dict(zip(resolved.dataset.names, kinds,
+                                                        strict=True)))
     if problems:
         raise InputError(problems)
     dataset = resolved.dataset
     warnings.extend(resolved.warnings)
     constraints = build_constraints(
         dataset.names, spec.tiers, spec.within_tier, spec.forbidden, spec.required,
-        spec.parent_cap,
+        spec.parent_cap, kinds=kinds if mixed else None,
     )
     return Prepared(spec, dataset, constraints, display, spec_display, warnings,
                     resolved.columns, resolved.bins_fingerprint)
@@ -518,7 +537,8 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     pseudo_count = spec.fit.pseudo_count if spec.fit is not None else DEFAULT_PSEUDO_COUNT
     gaussian = is_gaussian(score_spec["name"])
     model, fitted = fit_model(part.dataset, gaussian, outcome.parent_sets, pseudo_count,
-                              graph_sha256(edges), statistics)
+                              graph_sha256(edges), statistics,
+                              mixed=is_mixed(score_spec["name"]))
     record: dict[str, Any] = {
         "format_version": 2,  # runner.record.FORMAT_VERSION
         "run_id": None,

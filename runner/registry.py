@@ -197,7 +197,7 @@ class ExactParams(CandidateParams):
 
 # --------------------------------------------------------------------------- entries
 
-DataKind = Literal["discrete", "continuous"]
+DataKind = Literal["discrete", "continuous", "mixed"]
 ScorerBuilder = Callable[[str, Params, "Dataset"], "FamilyScorer"]
 ScoreRecorder = Callable[[Params, int], dict[str, Any]]
 LocalMethod = Callable[..., "SearchOutcome"]
@@ -265,6 +265,7 @@ class MethodEntry:
 
 _DISCRETE = Target[ScorerBuilder]("runner.kinds:discrete_scorer")
 _GAUSSIAN = Target[ScorerBuilder]("runner.kinds:gaussian_scorer")
+_MIXED = Target[ScorerBuilder]("runner.kinds:mixed_scorer")
 
 SCORES: tuple[ScoreEntry, ...] = (
     ScoreEntry(
@@ -303,6 +304,13 @@ SCORES: tuple[ScoreEntry, ...] = (
         "marginal likelihood under a normal-Wishart prior (prior mean: the column means)",
         "Geiger & Heckerman 1994; Kuipers, Moffa & Heckerman 2014",
         record=Target("runner.kinds:bge_record")),
+    ScoreEntry(
+        "cg-bic", NoParams, False, "mixed", _MIXED,
+        "conditional linear Gaussian BIC for tables mixing discrete and continuous columns: "
+        "a continuous child regressed on its continuous parents per configuration of its "
+        "discrete parents, a discrete child the discrete BIC; discrete children never get "
+        "continuous parents; bic without continuous columns, gaussian-bic without discrete "
+        "ones", "Lauritzen & Wermuth 1989; Bottcher 2001; Schwarz 1978"),
 )
 
 METHODS: tuple[MethodEntry, ...] = (

@@ -53,7 +53,7 @@ from runner.scores.gaussian import LinearGaussianFamily
 #: log-likelihood, AIC) are not on that scale: structural drift is not judged under them.
 BAYES_FACTOR_SCALE: dict[str, str] = {
     "bdeu": "exact", "k2": "exact", "bge": "exact",
-    "bic": "approximate", "gaussian-bic": "approximate",
+    "bic": "approximate", "gaussian-bic": "approximate", "cg-bic": "approximate",
 }
 
 #: The fit-drift interval: its level, the number of bootstrap resamples and their seed.
@@ -314,6 +314,8 @@ def same_rows(record: Mapping[str, Any], baseline_edges: Sequence[Sequence[str]]
     fit, note = None, None
     if model is None:
         note = "the baseline run has no fitted model (model.json)"
+    elif str(model.get("estimator", "")).startswith("conditional-gaussian"):
+        note = "the fit of a conditional Gaussian model (cg-bic) on new rows is not measured yet"
     else:
         fit, note = fit_drift(model, inputs.learning, held_out)
     return DriftMeasures(score, BAYES_FACTOR_SCALE.get(score), inputs.learning.rows,

@@ -247,9 +247,26 @@ def tables_context(model: Mapping[str, Any] | None) -> dict[str, Any]:
                   "rows": var["configurations"][:TABLE_ROWS_SHOWN],
                   "total": len(var["configurations"]),
                   "possible": var["possible_configurations"]}
-                 for name, var in model["variables"].items()]
-    return {"kind": "discrete", "model": model, "variables": variables,
-            "shown": TABLE_ROWS_SHOWN}
+                 for name, var in model["variables"].items() if var["kind"] == "discrete"]
+    regressions = [row for name, var in model["variables"].items()
+                   if var["kind"] == "continuous" for row in _regression_rows(name, var)]
+    return {"kind": "mixed" if regressions else "discrete", "model": model,
+            "variables": variables, "regressions": regressions, "shown": TABLE_ROWS_SHOWN}
+
+
+def _regression_rows(name: str, var: Mapping[str, Any]) -> list[dict[str, Any]]:
+    """A continuous variable of a conditional Gaussian model (cg-bic) as table rows: one
+    per configuration of its discrete parents (one row without discrete parents)."""
+    def row(given: str, fit: Mapping[str, Any], rows: Any) -> dict[str, Any]:
+        return {"name": name, "given": given, "rows": rows, "intercept": fit["intercept"],
+                "coefficients": list(fit["coefficients"].items()),
+                "residual_variance": fit["residual_variance"]}
+    if "configurations" not in var:
+        return [row("-", var, "all")]
+    discrete = var["discrete_parents"]
+    return [row(", ".join(f"{p}={s}" for p, s in zip(discrete, c["parents"], strict=True))
+               + ("" if c["fit"] == "least-squares" else " (too few rows: fit without "
+                  "parents)"), c, c["rows"]) for c in var["configurations"][:TABLE_ROWS_SHOWN]]
 
 
 def diff_context(a: Mapping[str, Any], b: Mapping[str, Any]) -> dict[str, Any]:

@@ -5,7 +5,8 @@ The total score of a DAG is the sum of its family scores. :func:`build_scorer` b
 score to encoded data and returns a :class:`~runner.scores.cache.FamilyScorer`, which
 counts and caches families by (child, parent set). The scores of continuous data
 (:mod:`runner.scores.gaussian`) work from sufficient statistics instead of counts;
-:func:`build_gaussian_scorer` binds them, to the same scorer interface. Which scores
+:func:`build_gaussian_scorer` binds them, to the same scorer interface; the mixed score
+(:mod:`runner.scores.conditional_gaussian`) is bound by :func:`build_cg_scorer`. Which scores
 exist, their parameters and defaults are the registry's (:mod:`runner.registry`).
 """
 
@@ -18,6 +19,7 @@ import numpy as np
 
 from runner import registry
 from runner.scores.cache import FamilyScorer
+from runner.scores.conditional_gaussian import ConditionalGaussianScorer, build_cg_scorer
 from runner.scores.counts import CountScorer
 from runner.scores.dirichlet import DEFAULT_ESS
 from runner.scores.gaussian import (
@@ -84,8 +86,10 @@ __all__ = [
     "DISCRETE_SCORES",
     "GAUSSIAN_SCORES",
     "SCORE_EQUIVALENT",
+    "ConditionalGaussianScorer",
     "FamilyScorer",
     "GaussianScorer",
+    "build_cg_scorer",
     "build_gaussian_scorer",
     "build_scorer",
 ]

@@ -19,11 +19,12 @@ from runner.spec.models import (
     spec_sha256,
     tier_label,
 )
-from runner.spec.rules import check_spec_against_columns
+from runner.spec.rules import check_required_kinds, check_spec_against_columns
 
 __all__ = [
     "IMPLEMENTED_KINDS",
     "Spec",
+    "check_required_kinds",
     "check_spec_against_columns",
     "load_spec",
     "normalised_spec",

@@ -13,7 +13,7 @@ with their names when the spec gives ``tier_names``.
 from __future__ import annotations
 
 import difflib
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -67,6 +67,16 @@ def _holdout_needs_pseudo_count(spec: Spec, where: Where) -> list[Problem]:
                           "above 0: a state or parent configuration the learning rows lack "
                           "would get probability 0 and a log-likelihood of -inf; set "
                           "fit.pseudo_count (e.g. 1.0) or drop 'evaluation'", value=0.0)]
+
+
+def _holdout_not_under_mixed(spec: Spec, where: Where) -> list[Problem]:
+    """The held-out fit is written for tables and for linear-Gaussian families; a mixed
+    (conditional Gaussian) model has no held-out fit yet."""
+    if spec.evaluation is None or registry.score(spec.score.name).data_kind != "mixed":
+        return []
+    return [where.problem("evaluation", f"held-out evaluation is not available under score "
+                          f"'{spec.score.name}' (mixed data) yet; drop 'evaluation', or use "
+                          "a discrete score (bin the continuous columns) or a Gaussian one")]
 
 
 def _column_rules(spec: Spec, where: Where) -> list[Problem]:
@@ -320,6 +330,7 @@ def _repeated_pairs(section: str) -> Rule:
 RULES: tuple[tuple[frozenset[str], Rule], ...] = (
     (frozenset(), _consensus_needs_bootstrap),
     (frozenset({"fit", "evaluation"}), _holdout_needs_pseudo_count),
+    (frozenset({"score", "evaluation"}), _holdout_not_under_mixed),
     (frozenset({"dataset.columns"}), _column_rules),
     (frozenset({"score"}), _ignored_score_keys),
     (frozenset({"search.method", "search.restarts"}), _ignored_search_keys),
@@ -364,6 +375,23 @@ def check_spec_against_columns(spec: Spec, columns: Sequence[str],
         Problem(file, _not_a_column(name, shown, columns), line=spec.line_of(key), key=key,
                 value=name)
         for key, name in _named_variables(spec) if name not in known
+    ]
+
+
+def check_required_kinds(spec: Spec, kinds: Mapping[str, str]) -> list[Problem]:
+    """Under the mixed score (cg-bic), a problem for every required edge from a
+    continuous column into a discrete one: a discrete variable may not have continuous
+    parents in a conditional Gaussian network (``kinds``: column -> kind as resolved)."""
+    score = spec.score.name
+    return [
+        Problem(spec.file, (
+            f"required edge {a} -> {b} goes from a continuous column into a discrete one; "
+            f"under score '{score}' a discrete variable may not have continuous parents "
+            f"(conditional Gaussian network); require {b} -> {a}, bin {a!r} "
+            f"(dataset.columns.{a}: {{kind: continuous, bins: 4}}), or drop the edge"),
+            line=spec.line_of(f"required.{i}"), key=f"required.{i}", value=[a, b])
+        for i, (a, b) in enumerate(spec.required)
+        if kinds.get(a) == "continuous" and kinds.get(b) == "discrete"
     ]
 
 
