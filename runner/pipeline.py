@@ -81,6 +81,24 @@ def prepare(spec_path: str | Path, data_path: str | Path | None = None,
         if not isinstance(exc.partial_spec, Spec):
             raise
         spec = exc.partial_spec
+    return prepare_loaded(spec, str(spec_path), problems, data_path, bins_from)
+
+
+def prepare_loaded(spec: Spec, spec_display: str, problems: list[Problem] | None = None,
+                   data_path: str | Path | None = None,
+                   bins_from: Path | None = None) -> Prepared:
+    """:func:`prepare` of a spec already read (``problems``: those found reading it);
+    problems about keys a base spec gave point at the base file (``extends``)."""
+    try:
+        return _prepare_loaded(spec, spec_display, list(problems or []), data_path, bins_from)
+    except InputError as exc:
+        error = InputError(spec.relocate(exc.problems))
+        error.partial_spec = exc.partial_spec
+        raise error from None
+
+
+def _prepare_loaded(spec: Spec, spec_path: str, problems: list[Problem],
+                    data_path: str | Path | None, bins_from: Path | None) -> Prepared:
     warnings = list(spec.warnings)
     ds = spec.dataset
     if data_path is not None:
@@ -265,8 +283,9 @@ def search_refusal(prepared: Prepared) -> Problem | None:
     refused = _refusal(prepared)
     if refused is None:
         return None
-    return Problem(prepared.spec_display, refused.message,
-                   line=prepared.spec.line_of(refused.key), key=refused.key)
+    return prepared.spec.relocate([Problem(prepared.spec_display, refused.message,
+                                           line=prepared.spec.line_of(refused.key),
+                                           key=refused.key)])[0]
 
 
 def _refusal(prepared: Prepared) -> registry.Refusal | None:
