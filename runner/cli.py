@@ -37,20 +37,27 @@ from runner.present.text import (
     overview_table,
     run_table,
     summary_lines,
+    variation_lines,
+    variation_run_lines,
+    variation_table,
 )
 from runner.progress import Reporter
 from runner.project import DEFAULT_SPECS, SPECS_ENV, project_board, spec_arguments, specs_folder
 from runner.record import baseline_json_schema, record_json_schema
 from runner.spec import load_spec, spec_json_schema
 from runner.store import (
+    all_runs,
     atomic_write_text,
+    find_variation,
     list_runs,
     read_baseline,
     read_check_outcome,
     read_model,
     read_run,
+    read_variation,
     resolve_run,
     results_root,
+    variations_of_run,
     write_baseline,
 )
 
@@ -117,8 +124,10 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
     _engine_options(p)
 
-    p = sub.add_parser("show", help="a stored run's summary")
-    p.add_argument("run", metavar="RUN")
+    p = sub.add_parser("show", help="a stored run's summary, or a variation summary's "
+                       "edge shares")
+    p.add_argument("run", metavar="RUN", help="a run id (or unique prefix, or run folder), "
+                   "or the id of a variation summary (results/<spec>/variations/<id>.json)")
     p.add_argument("--results")
     p.add_argument("--json", action="store_true")
 
@@ -226,7 +235,7 @@ def _cmd_validate(args: argparse.Namespace) -> int:
 
 
 def _learn_specs(args: argparse.Namespace, root: Path,
-                 reuse_bins: bool | None = None) -> list[SpecOutcome]:
+                 reuse_bins: bool | None = None, vary: bool = True) -> list[SpecOutcome]:
     """``run``/``check``: the SPEC arguments as spec files (none: the project's specs),
     all prepared before any is learned, the up-to-date project specs skipped unless
     ``--force``; the engine is opened only when there is something to learn."""
@@ -239,7 +248,7 @@ def _learn_specs(args: argparse.Namespace, root: Path,
     seed = getattr(args, "seed", None)
     planned = plan_specs([r.path for r in refs], root, data_path=args.data, seed=seed,
                          reuse_bins=reuse_bins, project={r.path for r in refs if r.discovered},
-                         force=args.force)
+                         force=args.force, vary=vary)
     if all(p.current is not None for p in planned):
         return learn_planned(planned, root, InProcess())  # nothing to learn
     with open_engine(choice) as engine:
@@ -302,6 +311,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
         for item in out:
             print(f"stored: {item['folder']}")
             print(f"report: dagmill report {item['run_id']} --results {root}")
+        for path in dict.fromkeys(o.summary for o in outcomes if o.summary is not None):
+            print("\n".join(variation_run_lines(read_variation(path), root)))
         for line in _outcome_lines(outcomes):
             print(line)
     for result in mismatch:
@@ -325,12 +336,22 @@ def _not_reproduced(result: RunResult, root: Path) -> str:
 
 
 def _cmd_show(args: argparse.Namespace) -> int:
-    folder = resolve_run(results_root(args.results), args.run)
+    """``show RUN``; RUN may also be a variation summary's id (or a unique prefix)."""
+    root = results_root(args.results)
+    summary = find_variation(root, args.run) if not Path(args.run).is_dir() else None
+    if summary is not None and (summary.stem == args.run or not any(
+            p.name.startswith(args.run) for p in all_runs(root))):
+        doc = read_variation(summary)
+        print(json.dumps(doc, indent=2, sort_keys=True) if args.json else variation_table(doc))
+        return 0
+    folder = resolve_run(root, args.run)
     record = read_run(folder)
     if args.json:
         print(json.dumps(record, indent=2, sort_keys=True))
     else:
-        print("\n".join(summary_lines(record, folder)))
+        lines = summary_lines(record, folder) + variation_lines(
+            variations_of_run(root, record["spec_name"], record["run_id"]), record["run_id"])
+        print("\n".join(lines))
     return 0
 
 
@@ -405,7 +426,7 @@ def _check(args: argparse.Namespace) -> int:
     is held against the baseline instead, and no new ``check.json`` is written."""
     root = results_root(args.results)
     reports, seconds, texts = [], {}, []
-    outcomes = _learn_specs(args, root, reuse_bins=True)
+    outcomes = _learn_specs(args, root, reuse_bins=True, vary=False)  # the spec's own settings
     results = [o.result for o in outcomes if o.result is not None]
     reused = {o.result.run_id for o in outcomes
               if o.status == UP_TO_DATE and o.result is not None}

@@ -106,6 +106,27 @@ def prepare(spec_path: str | Path | Mapping[str, Any], data_path: str | Path | N
         if not isinstance(exc.partial_spec, Spec):
             raise
         spec = exc.partial_spec
+    return prepare_loaded(spec, spec_display, problems, data_path, bins_from,
+                          data_display=data_display)
+
+
+def prepare_loaded(spec: Spec, spec_display: str, problems: list[Problem] | None = None,
+                   data_path: str | Path | None = None, bins_from: Path | None = None,
+                   *, data_display: str | None = None) -> Prepared:
+    """:func:`prepare` of a spec already read (``problems``: those found reading it);
+    problems about keys a base spec gave point at the base file (``extends``)."""
+    try:
+        return _prepare_loaded(spec, spec_display, list(problems or []), data_path, bins_from,
+                               data_display)
+    except InputError as exc:
+        error = InputError(spec.relocate(exc.problems))
+        error.partial_spec = exc.partial_spec
+        raise error from None
+
+
+def _prepare_loaded(spec: Spec, spec_display: str, problems: list[Problem],
+                    data_path: str | Path | None, bins_from: Path | None,
+                    data_display: str | None = None) -> Prepared:
     warnings = list(spec.warnings)
     ds = spec.dataset
     if data_path is not None:
@@ -302,8 +323,9 @@ def search_refusal(prepared: Prepared) -> Problem | None:
     refused = _refusal(prepared)
     if refused is None:
         return None
-    return Problem(prepared.spec_display, refused.message,
-                   line=prepared.spec.line_of(refused.key), key=refused.key)
+    return prepared.spec.relocate([Problem(prepared.spec_display, refused.message,
+                                           line=prepared.spec.line_of(refused.key),
+                                           key=refused.key)])[0]
 
 
 def _refusal(prepared: Prepared) -> registry.Refusal | None:

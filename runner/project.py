@@ -14,6 +14,7 @@ Everything here returns values (data classes); :mod:`runner.present` renders the
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 from collections.abc import Sequence
@@ -25,11 +26,18 @@ import yaml
 
 from runner.codeversion import code_version
 from runner.errors import InputError, Problem
-from runner.pipeline import Prepared, prepare, prepared_input_sha256, search_refusal
+from runner.pipeline import (
+    Prepared,
+    prepare,
+    prepare_loaded,
+    prepared_input_sha256,
+    search_refusal,
+)
 from runner.spec import Spec, spec_sha256
 from runner.store import (
     PREVIOUS_KEY,
     RECORD_HASH_KEY,
+    current_variation,
     list_runs,
     read_baseline,
     read_check_outcome,
@@ -213,6 +221,8 @@ class Freshness:
 def freshness(prepared: Prepared, results: Path, seed: int | None = None) -> Freshness:
     """The prepared spec (with the ``seed`` override) against its latest run in
     ``results``: up to date when that run's input hash is the one a learn would record."""
+    if prepared.spec.combinations:
+        return _variation_freshness(prepared, results, seed)
     inputs = prepared_input_sha256(prepared, seed)
     latest = latest_run(results, prepared.spec.name)
     if latest is None:
@@ -222,6 +232,21 @@ def freshness(prepared: Prepared, results: Path, seed: int | None = None) -> Fre
     reasons = staleness(latest.record, prepared.spec, prepared.dataset.sha256, code_version(),
                         inputs)
     return Freshness(inputs, latest, tuple(reasons))
+
+
+def _variation_freshness(prepared: Prepared, results: Path, seed: int | None) -> Freshness:
+    """A spec with ``vary`` is up to date when its latest variation summary lists the
+    input hashes its combinations would get now (``input_sha256``: the hash of those)."""
+    hashes = [prepared_input_sha256(prepare_loaded(c.spec, prepared.spec_display), seed)
+              for c in prepared.spec.combinations]
+    inputs = hashlib.sha256("\n".join(hashes).encode()).hexdigest()
+    latest = latest_run(results, prepared.spec.name)
+    if latest is None:
+        return Freshness(inputs, None, ("never run",))
+    if current_variation(results, prepared.spec.name, hashes) is None:
+        return Freshness(inputs, latest, ("a combination of vary changed (spec, data or "
+                                          "code)",))
+    return Freshness(inputs, latest, ())
 
 
 # --------------------------------------------------------------------------- the board
@@ -356,7 +381,11 @@ def _spec_state(path: Path, results: Path) -> tuple[str | None, Freshness | None
     refused = search_refusal(prepared)
     if refused is not None:
         return prepared.spec.name, None, refused.format()
-    return prepared.spec.name, freshness(prepared, results), None
+    try:
+        fresh = freshness(prepared, results)
+    except InputError as exc:  # a combination of its vary section
+        return prepared.spec.name, None, exc.problems[0].format()
+    return prepared.spec.name, fresh, None
 
 
 def board_row(path: Path, results: Path) -> BoardRow:

@@ -572,3 +572,91 @@ def baseline_json_schema() -> dict[str, Any]:
     """The JSON Schema (draft 2020-12) of ``baseline.json``, format version 2."""
     return _schema(Baseline, "A dagmill baseline (baseline.json), format version 2: the "
                    "pinned run of a spec that `dagmill check` holds new results to.")
+
+
+# --------------------------------------------------------------------------- variations
+
+
+VARIATION_FORMAT_VERSION = 1
+
+
+class VariationScore(Fixed):
+    """A combination's score: name, value and value per row."""
+
+    name: str
+    value: float
+    per_row: float
+
+
+class VariationRun(Fixed):
+    """One combination of a ``vary`` section and the run that learned it."""
+
+    values: dict[str, Any] = Field(description="dotted key -> the value this run used")
+    run_id: str = Field(description="the run (results/<spec name>/runs/<run id>)")
+    input_sha256: Sha256 = Field(description="the run's input hash")
+    record_sha256: Sha256 | None = Field(description="the run's record seal")
+    graph_sha256: Sha256 = Field(description="the run's graph hash")
+    score: VariationScore
+    edges: int = Field(description="the number of learned edges")
+
+
+class EdgeShare(Fixed):
+    """One directed edge and the share of combinations that hold it."""
+
+    edge: Edge
+    directed: float = Field(description="share of combinations whose DAG holds a -> b")
+    class_: float = Field(alias="class", description="share whose equivalence class "
+                          "(CPDAG) holds a -> b, or a - b undirected")
+    adjacent: float = Field(description="share in which a and b are joined either way")
+
+
+class StableCore(Fixed):
+    """The edges present in every combination."""
+
+    directed: list[Edge] = Field(description="directed edges in every combination's DAG")
+    class_: list[Edge] = Field(alias="class", description="directed edges in every "
+                               "combination's equivalence class")
+
+
+class VariationSummary(Fixed):
+    """``variations/<summary id>.json`` beside a spec's runs: what ``run`` of a spec with
+    a ``vary`` section learned, per combination and per edge, sealed like a record."""
+
+    model_config = ConfigDict(title="dagmill variation summary")
+
+    format_version: Literal[1]
+    summary_id: str = Field(description="<UTC time>-<first 10 hex of the inputs' hash>")
+    spec_name: str
+    spec_path: str = Field(description="the spec file, relative to the project folder")
+    spec_sha256: Sha256 = Field(description="sha256 of the normalised spec with its vary "
+                                "section")
+    inputs_sha256: Sha256 = Field(description="sha256 of the combinations' input hashes, "
+                                  "in order")
+    created_utc: str
+    keys: list[str] = Field(description="the varied keys, sorted")
+    combinations: list[VariationRun] = Field(
+        description="one per combination: keys sorted, values in the given order, the "
+        "last key changing fastest")
+    shares: list[EdgeShare] = Field(description="per directed edge seen in any "
+                                    "combination's DAG or class, sorted by edge")
+    stable_core: StableCore
+    summary_sha256: Sha256 = Field(description="sha256 of this file without this key and "
+                                   "`signature`")
+    signature: Signature | None = None
+
+
+def check_variation(doc: Any, file: str) -> VariationSummary:
+    """``doc`` (a parsed variation summary) as its model; InputError naming ``file``."""
+    if not isinstance(doc, dict):
+        raise InputError(Problem(file, "not a dagmill variation summary: a JSON object was "
+                                 "expected"))
+    version = doc.get("format_version")
+    if isinstance(version, int) and version > VARIATION_FORMAT_VERSION:
+        raise InputError(Problem(file, f"this variation summary has format version "
+                                 f"{version}; this dagmill reads version "
+                                 f"{VARIATION_FORMAT_VERSION}: upgrade dagmill",
+                                 key="format_version"))
+    try:
+        return VariationSummary.model_validate(doc)
+    except ValidationError as exc:
+        raise InputError(_problems(exc, file)) from None

@@ -49,6 +49,7 @@ from runner.record import (
     check_baseline,
     check_outcome,
     check_record,
+    check_variation,
     format_version,
 )
 from runner.signing import Signer, signer_from_environment
@@ -677,3 +678,109 @@ def _raw_record(folder: Path) -> dict[str, Any] | None:
     except (OSError, UnicodeDecodeError, json.JSONDecodeError):
         return None
     return doc if isinstance(doc, dict) else None
+
+
+# --------------------------------------------------------------------------- variation summaries
+
+VARIATIONS_FOLDER = "variations"
+VARIATION_HASH_KEY = "summary_sha256"
+SUMMARY_ID = re.compile(r"^\d{8}T\d{6}Z-[0-9a-f]{10}(-\d+)?$")
+
+
+def variation_sha256(doc: dict[str, Any]) -> str:
+    """The sha256 of a variation summary without ``summary_sha256`` and ``signature``."""
+    return sha256_text(dump_json({k: v for k, v in doc.items()
+                                  if k not in (VARIATION_HASH_KEY, SIGNATURE_KEY)}))
+
+
+def write_variation(root: Path, doc: dict[str, Any], signer: Signer | None = None) -> Path:
+    """Write a variation summary (sealed, signed with a signer: default the key
+    ``$DAGMILL_SIGNING_KEY`` names) as ``<root>/<spec>/variations/<summary id>.json``;
+    an id already taken gets ``-2``, ``-3``, ... (never overwritten). Sets
+    ``summary_id`` and the seal in ``doc``; returns the path."""
+    if signer is None:
+        signer = signer_from_environment()
+    folder = root / doc["spec_name"] / VARIATIONS_FOLDER
+    folder.mkdir(parents=True, exist_ok=True)
+    base, n = doc["summary_id"], 1
+    while (folder / f"{doc['summary_id']}.json").exists():
+        n += 1
+        doc["summary_id"] = f"{base}-{n}"
+    doc.pop(SIGNATURE_KEY, None)
+    doc[VARIATION_HASH_KEY] = variation_sha256(doc)
+    if signer is not None:
+        doc[SIGNATURE_KEY] = signer.sign(doc[VARIATION_HASH_KEY])
+    _valid(check_variation, doc, "variation summary")
+    path = folder / f"{doc['summary_id']}.json"
+    atomic_write_text(path, dump_json(doc))
+    return path
+
+
+def read_variation(path: Path) -> dict[str, Any]:
+    """A variation summary, checked against its model and its seal (InputError naming
+    the file when it does not fit or was edited)."""
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(Problem(str(path), f"variation summary is unreadable: {exc}")) from None
+    check_variation(doc, str(path))
+    if variation_sha256(doc) != doc[VARIATION_HASH_KEY]:
+        raise InputError(Problem(str(path), "variation summary does not match its "
+                                 "summary_sha256: it was edited by hand; restore it from "
+                                 "version control", key=VARIATION_HASH_KEY))
+    return doc
+
+
+def list_variations(root: Path, spec_name: str) -> list[Path]:
+    """A spec's variation summaries, oldest first (by id: the time comes first)."""
+    folder = root / spec_name / VARIATIONS_FOLDER
+    if not folder.is_dir():
+        return []
+    return sorted((p for p in folder.glob("*.json") if SUMMARY_ID.match(p.stem)),
+                  key=lambda p: (p.stem[:16], len(p.stem), p.stem))
+
+
+def find_variation(root: Path, ref: str) -> Path | None:
+    """The summary whose id is ``ref`` or starts with it (None when no summary matches;
+    InputError when several do)."""
+    if not ref or not root.is_dir():
+        return None
+    found = [p for spec in sorted(root.iterdir()) if spec.is_dir()
+             for p in list_variations(root, spec.name) if p.stem.startswith(ref)]
+    exact = [p for p in found if p.stem == ref]
+    if exact:
+        return exact[0]
+    if len(found) > 1:
+        raise InputError(Problem(str(root), f"{ref!r} matches {len(found)} variation "
+                                 "summaries; give more of the id", key="RUN"))
+    return found[0] if found else None
+
+
+def variations_of_run(root: Path, spec_name: str, run_id: str) -> list[dict[str, Any]]:
+    """The readable variation summaries of a spec that list ``run_id``, oldest first."""
+    out = []
+    for path in list_variations(root, spec_name):
+        try:
+            doc = read_variation(path)
+        except InputError:
+            continue
+        if any(c["run_id"] == run_id for c in doc["combinations"]):
+            out.append(doc)
+    return out
+
+
+def current_variation(root: Path, spec_name: str,
+                      input_hashes: Sequence[str]) -> dict[str, Any] | None:
+    """The spec's latest readable variation summary when it lists exactly these input
+    hashes (the combinations a learn would make now) and all its runs are still stored;
+    else None."""
+    for path in reversed(list_variations(root, spec_name)):
+        try:
+            doc = read_variation(path)
+        except InputError:
+            continue
+        if [c["input_sha256"] for c in doc["combinations"]] != list(input_hashes):
+            return None
+        folders = [root / spec_name / "runs" / c["run_id"] for c in doc["combinations"]]
+        return doc if all((f / "run.json").is_file() for f in folders) else None
+    return None

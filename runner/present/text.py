@@ -8,6 +8,7 @@ column.
 
 from __future__ import annotations
 
+import json
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -453,3 +454,60 @@ def overview_table(board: Mapping[str, Any]) -> str:
     body = render_table(["spec", "name", "state", "last run", "by", "when", "edges",
                          "score/row", "baseline", "last check"], table)
     return "\n".join([body, *(["", *details] if details else [])])
+
+
+# --------------------------------------------------------------------------- variations
+
+
+def _values_text(values: Mapping[str, Any]) -> str:
+    return ", ".join(f"{k}={_value(v)}" for k, v in values.items())
+
+
+def _value(value: Any) -> str:
+    return json.dumps(value, sort_keys=True)
+
+
+def variation_table(summary: Mapping[str, Any]) -> str:
+    """``show`` of a variation summary: its combinations (values, run, score, edges),
+    then every edge with its share of combinations (directed, class, adjacent; stable:
+    present in every combination's DAG), most shared first, then by edge."""
+    combos = summary["combinations"]
+    head = [f"variation {summary['summary_id']}  spec {summary['spec_name']}  "
+            f"{len(combos)} combinations of {', '.join(summary['keys'])}",
+            f"created {summary['created_utc']}  sealed {summary['summary_sha256'][:16]}", ""]
+    keys = list(summary["keys"])
+    rows = [[*(_value(c["values"][k]) for k in keys), c["run_id"], c["score"]["name"],
+             f"{c['score']['value']:.4f}", str(c["edges"])] for c in combos]
+    table = render_table([*keys, "run", "score", "value", "edges"], rows)
+    shares = sorted(summary["shares"], key=lambda s: (-s["directed"], -s["class"],
+                                                       s["edge"][0], s["edge"][1]))
+    edge_rows = [[f"{s['edge'][0]} -> {s['edge'][1]}", f"{s['directed']:.3f}",
+                  f"{s['class']:.3f}", f"{s['adjacent']:.3f}",
+                  "stable" if s["directed"] == 1.0 else ""] for s in shares]
+    core = summary["stable_core"]
+    tail = ["", f"stable core: {len(core['directed'])} directed edges in every combination "
+            f"({len(core['class'])} in every combination's equivalence class)"]
+    return "\n".join([*head, table, "", "edge shares over the combinations",
+                      render_table(["edge", "directed", "class", "adjacent", ""], edge_rows),
+                      *tail])
+
+
+def variation_lines(summaries: Sequence[Mapping[str, Any]], run_id: str) -> list[str]:
+    """``show`` of a run that is a combination of ``vary`` sections: which summaries list
+    it, with its values."""
+    out = []
+    for doc in summaries:
+        values = next(c["values"] for c in doc["combinations"] if c["run_id"] == run_id)
+        out.append(f"variation  {doc['summary_id']}: combination {_values_text(values)} of "
+                   f"{len(doc['combinations'])} (dagmill show {doc['summary_id']})")
+    return out
+
+
+def variation_run_lines(summary: Mapping[str, Any], results: Path) -> list[str]:
+    """``run``'s lines for a variation summary it stored: its id, the stable core and how
+    to see the shares."""
+    core = summary["stable_core"]
+    return [f"variation: {summary['spec_name']}: {len(summary['combinations'])} combinations,"
+            f" {len(core['directed'])} edges in every one ({len(summary['shares'])} seen "
+            f"in any); summary {summary['summary_id']}",
+            f"shares: dagmill show {summary['summary_id']} --results {results}"]

@@ -17,12 +17,26 @@ Checking runs in three passes, all of whose problems are reported together:
 
 A pass-3 rule runs only when none of the key paths it reads failed pass 2, so one broken
 key never hides the problems of unrelated ones.
+
+Composition. A spec that names a base (``extends: _base.yaml``, relative to the spec) is
+merged over it before the passes: mappings key by key, lists and values replaced; bases
+may chain up to ``MAX_EXTENDS_DEPTH`` files, a cycle is refused naming its files. The line
+map then holds, per key path, the line and (for keys a base gave) the base's file, so a
+problem points at the file the value came from. A base's ``dataset.path`` is rewritten
+relative to the extending spec (paths are relative to the file they are written in).
+
+Variation. A spec with ``vary`` gets one spec per combination (keys sorted, values in
+order, the last key fastest), each built from the raw data and put through the same
+passes; a problem of a combination points at the value that caused it
+(``vary.<key>.<index>``).
 """
 
 from __future__ import annotations
 
 import copy
 import difflib
+import itertools
+import json
 import os
 import re
 import types
@@ -36,8 +50,15 @@ from pydantic import BaseModel, ValidationError
 
 from runner.errors import InputError, Problem
 from runner.files import special_file_kind
-from runner.spec.models import OPTIONAL_SECTIONS, PATTERN_HINTS, Spec, nearest_line
-from runner.spec.rules import overlaps, rule_problems
+from runner.spec.models import (
+    MAX_EXTENDS_DEPTH,
+    OPTIONAL_SECTIONS,
+    PATTERN_HINTS,
+    Combination,
+    Spec,
+    locate,
+)
+from runner.spec.rules import Where, overlaps, rule_problems, vary_key_problems
 
 _MAX_NODES = 200_000
 
@@ -49,23 +70,16 @@ MAX_SPEC_BYTES = 1 << 20
 
 
 def load_spec(path: str | Path) -> Spec:
-    """Read and check a spec file; raise InputError with every problem found in it."""
+    """Read and check a spec file; raise InputError with every problem found in it.
+
+    A spec that ``extends`` a base spec is merged over it first (:func:`_composed`):
+    problems point at the file and line each value came from."""
     file = str(path)
-    text, problems = _read_text(Path(path), file)
-    if text is None:
-        raise InputError(problems)
-    root, problems = _compose(text, file)
-    if problems:
-        raise InputError(problems)
-    if root is None or (isinstance(root, yaml.ScalarNode) and root.tag == NULL_TAG):
-        raise InputError(Problem(file, "the spec is empty; it needs at least 'name' and "
-                                       "'dataset'"))
-    tree = _build_tree(root, file)
+    tree = _composed(Path(path), file, ())
     if not isinstance(tree.data, dict):
-        if tree.problems:
-            raise InputError(tree.problems)
-        raise InputError(Problem(file, "the top level of a spec must be a mapping of keys",
-                                 line=root.start_mark.line + 1, value=_shown(tree.data)))
+        raise InputError(tree.problems)
+    if tree.problems and any(p.key == EXTENDS_KEY for p in tree.problems):
+        raise InputError(_sorted_problems(tree.problems))
     return _checked(tree, Path(path).resolve())
 
 
@@ -155,13 +169,15 @@ def _checked(tree: _Tree, source: Path) -> Spec:
     """The spec of a parsed tree, checked by the models and the cross-key rules (pass 2
     and 3); raise InputError with every problem (the tree's own ones too)."""
     file = tree.file
-    spec, problems = _validate(tree.data, tree.lines, file)
+    spec, problems = _validate(tree.data, tree.lines, file, tree.origins)
     problems = [p for p in problems if not _inside_any(p.key or "", tree.refused)]
     all_problems = _sorted_problems([_lineless(p) for p in tree.problems + problems])
     partial = spec if spec is not None else _partial_spec(
         tree.data, frozenset(p.key or "" for p in all_problems))
     if partial is not None:
-        partial.attach_source(source, file, tree.lines, all_problems)
+        partial.attach_source(source, file, tree.lines, all_problems, tree.origins)
+        for combination in partial.combinations:
+            combination.spec.attach_source(source, file, tree.lines, [], tree.origins)
     if spec is None or any(p.severity == "error" for p in all_problems):
         error = InputError(all_problems)
         # The parts that passed, so callers can still check the data and the names in it.
@@ -281,6 +297,9 @@ class _Tree:
     problems: list[Problem] = field(default_factory=list)
     nodes: int = 0
     refused: set[str] = field(default_factory=set)
+    #: key path -> the file it came from, for keys merged in from a base spec (the others
+    #: come from ``file``); with ``lines``, a map from key paths to (file, line).
+    origins: dict[str, str] = field(default_factory=dict)
 
     def refuse(self, message: str, line: int, key: str | None) -> None:
         """Record a problem with a node; its value becomes null and is not reported again."""
@@ -355,21 +374,198 @@ def _mapping_data(node: yaml.MappingNode, path: tuple[str, ...], tree: _Tree,
     return result
 
 
+# --------------------------------------------------------------------------- extends
+
+
+#: The key naming a base spec, and how many bases deep a chain may go (a spec, its base,
+#: the base's base, ...: at most this many base files).
+EXTENDS_KEY = "extends"
+#: Keys that hold a path relative to the file they are written in; a base's value is
+#: rewritten relative to the spec that extends it when merged.
+PATH_KEYS = (("dataset", "path"),)
+
+
+def _single_tree(path: Path, file: str) -> _Tree:
+    """One YAML file as a tree (no ``extends`` resolved); data None with its problems."""
+    text, problems = _read_text(path, file)
+    if text is None:
+        return _Tree(file, problems=problems)
+    root, problems = _compose(text, file)
+    if problems:
+        return _Tree(file, problems=problems)
+    if root is None or (isinstance(root, yaml.ScalarNode) and root.tag == NULL_TAG):
+        return _Tree(file, problems=[Problem(file, "the spec is empty; it needs at least "
+                                             "'name' and 'dataset'")])
+    tree = _build_tree(root, file)
+    if not isinstance(tree.data, dict):
+        if not tree.problems:
+            tree.problems.append(Problem(file, "the top level of a spec must be a mapping of "
+                                         "keys", line=root.start_mark.line + 1,
+                                         value=_shown(tree.data)))
+        tree.data = None
+    return tree
+
+
+def _composed(path: Path, file: str, chain: tuple[tuple[Path, str], ...]) -> _Tree:
+    """A spec file with its ``extends`` chain merged under it: mappings merged key by key,
+    anything else (lists, values) replaced by the extending file's. ``chain`` holds the
+    files that extend this one (resolved path, name as shown), for cycles and depth."""
+    tree = _single_tree(path, file)
+    if not isinstance(tree.data, dict) or EXTENDS_KEY not in tree.data:
+        return tree
+    given = tree.data.pop(EXTENDS_KEY)
+    line = tree.lines.get(EXTENDS_KEY)
+    if given is None:
+        return tree
+    if not isinstance(given, str) or not given.strip():
+        tree.problems.append(Problem(file, "must be the path of a base spec file, relative "
+                                     "to this one", line=line, key=EXTENDS_KEY,
+                                     value=_shown(given)))
+        return tree
+    here = (*chain, (path.resolve(), file))
+    base_path = path.parent / given
+    base_file = str(Path(file).parent / given)
+    seen = {resolved: shown for resolved, shown in here}
+    if base_path.resolve() in seen:
+        cycle = " -> ".join([shown for _, shown in here] + [base_file])
+        tree.problems.append(Problem(file, f"{given!r} leads back to "
+                                     f"{seen[base_path.resolve()]}: a cycle of bases "
+                                     f"({cycle}) is refused",
+                                     line=line, key=EXTENDS_KEY, value=given))
+        return tree
+    if len(here) > MAX_EXTENDS_DEPTH:
+        tree.problems.append(Problem(file, f"too many bases: a spec may extend at most "
+                                     f"{MAX_EXTENDS_DEPTH} base files in a chain",
+                                     line=line, key=EXTENDS_KEY, value=given))
+        return tree
+    base = _composed(base_path, base_file, here)
+    if not isinstance(base.data, dict):
+        tree.problems += [p if p.line is not None or p.file != base_file else Problem(
+            file, f"extends {given!r}: {p.message}", line=line, key=EXTENDS_KEY, value=given)
+            for p in base.problems]
+        return tree
+    _rebase_paths(base, path.parent, base_path.parent)
+    return _merged(base, tree)
+
+
+def _rebase_paths(base: _Tree, child_dir: Path, base_dir: Path) -> None:
+    """Paths a base spec gives are relative to the base file: rewrite them relative to
+    the extending spec's folder (the merged spec is that spec's)."""
+    if child_dir.resolve() == base_dir.resolve():
+        return
+    for keys in PATH_KEYS:
+        holder: Any = base.data
+        for part in keys[:-1]:
+            holder = holder.get(part) if isinstance(holder, dict) else None
+        if isinstance(holder, dict) and isinstance(holder.get(keys[-1]), str):
+            target = base_dir / holder[keys[-1]]
+            holder[keys[-1]] = Path(os.path.relpath(target, child_dir)).as_posix()
+
+
+def _merged(base: _Tree, child: _Tree) -> _Tree:
+    """``child`` over ``base``: the data, the key lines with the file each came from, the
+    problems and refused keys of both."""
+    out = _Tree(child.file, problems=base.problems + child.problems,
+                refused=base.refused | child.refused, nodes=base.nodes + child.nodes)
+
+    def origin_of(tree: _Tree, key: str) -> str:
+        return tree.origins.get(key, tree.file)
+
+    def take(tree: _Tree, prefix: str) -> None:
+        for key, line in tree.lines.items():
+            if key == prefix or key.startswith(prefix + "."):
+                out.lines[key] = line
+                if origin_of(tree, key) != child.file:
+                    out.origins[key] = origin_of(tree, key)
+
+    def merge(low: dict[str, Any], high: dict[str, Any], path: str) -> dict[str, Any]:
+        result: dict[str, Any] = {}
+        for name in [*low, *(k for k in high if k not in low)]:
+            key = f"{path}.{name}" if path else name
+            if name in high and isinstance(high[name], dict) and isinstance(low.get(name), dict):
+                take(child, key)  # the mapping's own line is the extending file's
+                result[name] = merge(low[name], high[name], key)
+            elif name in high:
+                take(child, key)
+                result[name] = high[name]
+            else:
+                take(base, key)
+                result[name] = low[name]
+        return result
+
+    out.data = merge(base.data, child.data, "")
+    return out
+
+
+# --------------------------------------------------------------------------- vary
+
+
+def _expand_vary(spec: Spec, data: dict[str, Any], lines: dict[str, int], file: str,
+                 origins: dict[str, str]) -> list[Problem]:
+    """The specs of ``vary``'s combinations, each validated like any spec (attached to
+    ``spec``); a problem of a combination points at the value that caused it."""
+    where = Where(file, lines, data, origins)
+    problems = vary_key_problems(spec, where)
+    if problems:
+        return problems
+    vary = spec.vary or {}
+    keys = sorted(vary)
+    combos: list[Combination] = []
+    found: list[Problem] = []
+    base = {k: v for k, v in data.items() if k not in ("vary", "vary_limit")}
+    for picks in itertools.product(*(range(len(vary[k])) for k in keys)):
+        values = {k: vary[k][i] for k, i in zip(keys, picks, strict=True)}
+        combo = copy.deepcopy(base)
+        for key, value in values.items():
+            _set_path(combo, key.split("."), copy.deepcopy(value))
+        label = ", ".join(f"{k}={json.dumps(v)}" for k, v in values.items())
+        made, issues = _validate(combo, lines, file, origins)
+        errors = [p for p in issues if p.severity == "error"]
+        for p in errors:
+            culprit = next((k for k in keys if overlaps(k, p.key or "")), None)
+            at = f"vary.{culprit}.{picks[keys.index(culprit)]}" if culprit else "vary"
+            shown = (f"{culprit}={json.dumps(values[culprit])}" if culprit else label)
+            where_file, line = locate(lines, origins, file, at)
+            found.append(Problem(where_file, f"with {shown}: {p.key}: {p.message}", line=line,
+                                 key=at, value=p.value))
+        if made is not None and not errors:
+            combos.append(Combination(values, made))
+    if found:
+        return _dedupe(found)
+    spec.attach_combinations(tuple(combos))
+    return []
+
+
+def _set_path(data: dict[str, Any], parts: list[str], value: Any) -> None:
+    """Set a dotted key path in plain data, making the mappings on the way."""
+    current = data
+    for part in parts[:-1]:
+        if not isinstance(current.get(part), dict):
+            current[part] = {}
+        current = current[part]
+    current[parts[-1]] = value
+
+
 # --------------------------------------------------------------------------- pass 2: models
 
 
-def _validate(data: dict[str, Any], lines: dict[str, int],
-              file: str) -> tuple[Spec | None, list[Problem]]:
+def _validate(data: dict[str, Any], lines: dict[str, int], file: str,
+              origins: dict[str, str] | None = None) -> tuple[Spec | None, list[Problem]]:
+    origins = origins or {}
     try:
         spec = Spec.model_validate(data)
     except ValidationError as exc:
-        problems = _dedupe(_model_problem(err, data, lines, file) for err in exc.errors())
+        problems = _dedupe(_model_problem(err, data, lines, file, origins)
+                           for err in exc.errors())
     else:
-        return spec, rule_problems(spec, data, lines, file, frozenset())
+        problems = rule_problems(spec, data, lines, file, frozenset(), origins)
+        if spec.vary is not None and not any(p.severity == "error" for p in problems):
+            problems += _expand_vary(spec, data, lines, file, origins)
+        return spec, problems
     broken = frozenset(p.key or "" for p in problems)
     partial = _partial_spec(data, broken)
     if partial is not None:
-        problems += rule_problems(partial, data, lines, file, broken)
+        problems += rule_problems(partial, data, lines, file, broken, origins)
     return None, problems
 
 
@@ -412,13 +608,14 @@ def _inside_any(key: str, roots: set[str]) -> bool:
     return any(not root or key == root or key.startswith(root + ".") for root in roots)
 
 
-def _model_problem(err: Any, data: Any, lines: dict[str, int], file: str) -> Problem:
+def _model_problem(err: Any, data: Any, lines: dict[str, int], file: str,
+                   origins: dict[str, str]) -> Problem:
     path = _clean_loc(err["loc"], data, err["type"] == "missing")
     key = ".".join(path) or None
     kind = err["type"]
     value = None if kind in ("missing", "extra_forbidden") else _shown(err.get("input"))
-    return Problem(file, _model_message(err, path), line=nearest_line(lines, key or ""),
-                   key=key, value=value)
+    where, line = locate(lines, origins, file, key or "")
+    return Problem(where, _model_message(err, path), line=line, key=key, value=value)
 
 
 def _clean_loc(loc: tuple[Any, ...], data: Any, missing: bool) -> tuple[str, ...]:

@@ -12,6 +12,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any, Literal
 
@@ -25,6 +26,7 @@ from pydantic import (
     StrictInt,
     StrictStr,
     WithJsonSchema,
+    field_validator,
     model_validator,
 )
 
@@ -51,6 +53,12 @@ NAME_MAX = 100  # the spec name is a folder name; 255 bytes is the common file-s
 SHA256_PATTERN = r"^[0-9a-f]{64}$"
 SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
 TIER_NAME_LENGTH = 40
+#: The default most combinations a spec's ``vary`` section may give, and how many bases
+#: deep an ``extends`` chain may go (runner.spec.loader reads it).
+VARY_LIMIT = 100
+MAX_EXTENDS_DEPTH = 5
+#: Top-level keys that are not settings of one run: a ``vary`` key may not name them.
+NOT_VARIED = ("name", "vary", "vary_limit", "extends")
 
 PATTERN_HINTS = {
     NAME_PATTERN: "must be lowercase letters and digits, in words joined by single '-'",
@@ -258,6 +266,28 @@ class Spec(_Section):
                                 "tables (pseudo_count 1.0 when absent).")
     evaluation: EvaluationSpec | None = Field(
         None, description="Held-out evaluation: rows kept out of learning, then scored.")
+    extends: Annotated[StrictStr, Field(min_length=1)] | None = Field(
+        None, description="A base spec (a path relative to this file, conventionally "
+        "starting with '_'): merged under this one, mappings key by key, lists and values "
+        f"replaced; a base may extend another, at most {MAX_EXTENDS_DEPTH} deep, no cycles. "
+        "Paths in a base are relative to the base file.")
+    vary: dict[Annotated[StrictStr, Field(min_length=1)],
+               Annotated[list[Any], Field(min_length=1)]] | None = Field(
+        None, description="One run per combination of values: dotted keys of this spec "
+        "(score.ess, search.seed, parent_cap, ...) to lists of values; the cartesian "
+        "product, keys sorted, values in the given order; plus a summary of edge shares.")
+    vary_limit: PositiveCount = Field(
+        VARY_LIMIT, description="Most combinations 'vary' may give.")
+
+    @field_validator("extends")
+    @classmethod
+    def _extends_is_read_from_files(cls, value: str | None) -> str | None:
+        """``extends`` is resolved (and removed) when a spec file is read; a spec built
+        from data that still names a base would silently miss the base's settings."""
+        if value is not None:
+            raise ValueError("a base spec is merged when a spec file is read "
+                             "(runner.spec.load_spec); give the merged settings instead")
+        return value
 
     @model_validator(mode="before")
     @classmethod
@@ -274,7 +304,9 @@ class Spec(_Section):
     _source_path: Path | None = PrivateAttr(default=None)
     _file: str | None = PrivateAttr(default=None)
     _lines: dict[str, int] = PrivateAttr(default_factory=dict)
+    _origins: dict[str, str] = PrivateAttr(default_factory=dict)
     _warnings: list[Problem] = PrivateAttr(default_factory=list)
+    _combinations: tuple[Combination, ...] = PrivateAttr(default=())
 
     @property
     def source_path(self) -> Path:
@@ -289,12 +321,40 @@ class Spec(_Section):
         return self._file or str(self._source_path or "<spec>")
 
     def attach_source(self, path: Path, file: str, lines: dict[str, int],
-                      warnings: list[Problem]) -> None:
-        """Record where the spec was read from (by :func:`runner.spec.loader.load_spec`)."""
+                      warnings: list[Problem], origins: dict[str, str] | None = None) -> None:
+        """Record where the spec was read from (by :func:`runner.spec.loader.load_spec`);
+        ``origins`` maps the key paths that came from a base spec (``extends``) to it."""
         self._source_path = path
         self._file = file
         self._lines = dict(lines)
+        self._origins = dict(origins or {})
         self._warnings = list(warnings)
+
+    def locate(self, key_path: str) -> tuple[str, int | None]:
+        """(file, line) of a dotted key path (or of its nearest parent that has a line):
+        the base spec's file for a value that came from one."""
+        return locate(self._lines, self._origins, self.file, dotted(key_path))
+
+    def relocate(self, problems: list[Problem]) -> list[Problem]:
+        """Problems about this spec's keys, pointed at the file each key came from (a
+        base spec's, with its line) instead of this spec's."""
+        out = []
+        for p in problems:
+            if p.file == self.file and p.key and p.line == self.line_of(p.key):
+                file, line = self.locate(p.key)
+                if file != p.file:
+                    p = replace(p, file=file, line=line)
+            out.append(p)
+        return out
+
+    @property
+    def combinations(self) -> tuple[Combination, ...]:
+        """The specs of the ``vary`` section, one per combination (empty without one)."""
+        return self._combinations
+
+    def attach_combinations(self, combinations: tuple[Combination, ...]) -> None:
+        """Set by :func:`runner.spec.loader.load_spec` for a spec with ``vary``."""
+        self._combinations = combinations
 
     @property
     def warnings(self) -> list[Problem]:
@@ -335,6 +395,20 @@ class Spec(_Section):
             line=self.line_of("dataset.path"), key="dataset.path", value=self.dataset.path)
 
 
+@dataclass(frozen=True)
+class Combination:
+    """One combination of a spec's ``vary`` section: the values (dotted key -> value, keys
+    sorted) and the whole spec with them set (no ``vary`` section of its own)."""
+
+    values: dict[str, Any]
+    spec: Spec
+
+    @property
+    def label(self) -> str:
+        """``score.ess=1, search.seed=2``."""
+        return ", ".join(f"{k}={json.dumps(v)}" for k, v in self.values.items())
+
+
 # --------------------------------------------------------------------------- the spec as data
 
 
@@ -343,6 +417,10 @@ def normalised_spec(spec: Spec, seed: int | None = None) -> dict[str, Any]:
     ``tier_names`` and ``bootstrap.budget`` appear only when the spec gives them (older
     specs keep their hash)."""
     data = spec.model_dump(mode="json")
+    data.pop("extends", None)  # the merged spec is what counts
+    if data.get("vary") is None:  # specs without vary keep their hash
+        data.pop("vary", None)
+        data.pop("vary_limit", None)
     if data.get("tier_names") is None:
         data.pop("tier_names", None)
     if isinstance(data.get("bootstrap"), dict) and data["bootstrap"].get("budget") is None:
@@ -384,6 +462,26 @@ def tier_label(index: int, names: list[str] | None = None) -> str:
 def dotted(key_path: str) -> str:
     """Accept ``tiers[1][0]`` as well as ``tiers.1.0``."""
     return re.sub(r"\[(\d+)\]", r".\1", key_path).strip(".")
+
+
+def nearest_key(lines: dict[str, int], key: str) -> str | None:
+    """The key path itself, else its nearest parent, that has a line."""
+    parts = key.split(".") if key else []
+    while parts:
+        if ".".join(parts) in lines:
+            return ".".join(parts)
+        parts.pop()
+    return None
+
+
+def locate(lines: dict[str, int], origins: dict[str, str], file: str,
+           key: str) -> tuple[str, int | None]:
+    """(file, line) of a key path: ``lines`` holds the lines, ``origins`` the file of the
+    keys that came from a base spec (the others are ``file``'s)."""
+    found = nearest_key(lines, key)
+    if found is None:
+        return file, None
+    return origins.get(found, file), lines[found]
 
 
 def nearest_line(lines: dict[str, int], key: str) -> int | None:

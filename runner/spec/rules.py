@@ -13,13 +13,24 @@ with their names when the spec gives ``tier_names``.
 from __future__ import annotations
 
 import difflib
+import math
+import types
 from collections.abc import Callable, Iterator, Mapping, Sequence
-from dataclasses import dataclass
-from typing import Any
+from dataclasses import dataclass, field
+from typing import Annotated, Any, Union, get_args, get_origin
+
+from pydantic import BaseModel
 
 from runner import registry
 from runner.errors import Problem
-from runner.spec.models import IMPLEMENTED_KINDS, Spec, nearest_line, tier_label
+from runner.spec.models import (
+    IMPLEMENTED_KINDS,
+    NOT_VARIED,
+    Spec,
+    locate,
+    nearest_line,
+    tier_label,
+)
 
 
 @dataclass(frozen=True)
@@ -29,11 +40,12 @@ class Where:
     file: str
     lines: dict[str, int]
     raw: dict[str, Any]
+    origins: dict[str, str] = field(default_factory=dict)  # keys from a base spec
 
     def problem(self, key: str, message: str, value: Any = None,
                 severity: str = "error") -> Problem:
-        return Problem(self.file, message, line=nearest_line(self.lines, key), key=key,
-                       value=value, severity=severity)
+        file, line = locate(self.lines, self.origins, self.file, key)
+        return Problem(file, message, line=line, key=key, value=value, severity=severity)
 
     def line(self, key: str) -> int | None:
         return nearest_line(self.lines, key)
@@ -347,9 +359,10 @@ RULES: tuple[tuple[frozenset[str], Rule], ...] = (
 
 
 def rule_problems(spec: Spec, raw: dict[str, Any], lines: dict[str, int], file: str,
-                  broken: frozenset[str]) -> list[Problem]:
+                  broken: frozenset[str],
+                  origins: dict[str, str] | None = None) -> list[Problem]:
     """The problems of every rule none of whose key paths is in ``broken``."""
-    where = Where(file, lines, raw)
+    where = Where(file, lines, raw, dict(origins or {}))
     problems: list[Problem] = []
     for needs, rule in RULES:
         if not any(overlaps(need, key) for need in needs for key in broken):
@@ -362,6 +375,67 @@ def overlaps(need: str, key: str) -> bool:
     return key == need or key.startswith(need + ".") or need.startswith(key + ".") or not key
 
 
+# --------------------------------------------------------------------------- vary
+
+
+def _bare(tp: Any) -> Any:
+    """A type without its Annotated and Optional wrappers."""
+    while True:
+        origin = get_origin(tp)
+        if origin is Annotated:
+            tp = get_args(tp)[0]
+        elif origin in (Union, types.UnionType):
+            inner = [a for a in get_args(tp) if a is not type(None)]
+            if len(inner) != 1:
+                return tp
+            tp = inner[0]
+        else:
+            return tp
+
+
+def _vary_key_problem(key: str) -> str | None:
+    """Why a ``vary`` key names no setting of a spec, or None when it does: a dotted path
+    of the spec's keys (a mapping of names, such as ``dataset.columns``, takes any name);
+    a whole list is varied as one value, not item by item."""
+    parts = key.split(".")
+    if parts[0] in NOT_VARIED:
+        return "it is not a setting of one run"
+    tp: Any = Spec
+    for depth, part in enumerate(parts):
+        tp = _bare(tp)
+        if isinstance(tp, type) and issubclass(tp, BaseModel):
+            if part not in tp.model_fields:
+                where = ".".join(parts[:depth]) or "the top level"
+                message = f"unknown key '{part}' in {where}"
+                close = difflib.get_close_matches(part, list(tp.model_fields), n=1)
+                return message + (f"; did you mean '{close[0]}'?" if close else "")
+            tp = tp.model_fields[part].annotation
+        elif get_origin(tp) is dict:
+            tp = get_args(tp)[1]
+        else:
+            return (f"'{'.'.join(parts[:depth])}' has no keys below it; vary it as a "
+                    "whole value")
+    return None
+
+
+def vary_key_problems(spec: Spec, where: Where) -> list[Problem]:
+    """The ``vary`` section's keys against the spec's schema, and its number of
+    combinations against ``vary_limit``."""
+    vary = spec.vary or {}
+    problems = []
+    for key in sorted(vary):
+        why = _vary_key_problem(key)
+        if why is not None:
+            problems.append(where.problem(f"vary.{key}", f"'{key}' cannot be varied: {why}"))
+    total = math.prod(len(values) for values in vary.values())
+    if total > spec.vary_limit:
+        problems.append(where.problem(
+            "vary", f"{total} combinations ({' x '.join(str(len(vary[k])) for k in sorted(vary))}"
+            f") are more than vary_limit ({spec.vary_limit}); raise vary_limit or vary "
+            "fewer values"))
+    return problems
+
+
 # --------------------------------------------------------------------------- the data's columns
 
 
@@ -371,11 +445,11 @@ def check_spec_against_columns(spec: Spec, columns: Sequence[str],
     known = set(columns)
     shown = data_file if data_file is not None else spec.dataset.path
     file = spec.file
-    return [
+    return spec.relocate([
         Problem(file, _not_a_column(name, shown, columns), line=spec.line_of(key), key=key,
                 value=name)
         for key, name in _named_variables(spec) if name not in known
-    ]
+    ])
 
 
 def check_required_kinds(spec: Spec, kinds: Mapping[str, str]) -> list[Problem]:
