@@ -1,16 +1,11 @@
-"""``import dagmill``: the import name of dagmill's Python API (:mod:`runner.api`)."""
+"""``import dagmill``: the import name of dagmill's Python API (:mod:`runner.api`): the
+same public names as ``runner``, loaded on first use."""
 
-from runner import __version__
-from runner.api import (
-    GaussianFamily,
-    LearnedNetwork,
-    canonical_csv,
-    check,
-    compare_runs,
-    hold_against_baseline,
-    learn,
-    load_run,
-)
+from typing import Any
 
-__all__ = ["GaussianFamily", "LearnedNetwork", "__version__", "canonical_csv", "check",
-           "compare_runs", "hold_against_baseline", "learn", "load_run"]
+import runner
+from runner import __all__, __version__  # noqa: F401  (re-exported)
+
+
+def __getattr__(name: str) -> Any:
+    return getattr(runner, name)

@@ -39,11 +39,10 @@ import itertools
 import json
 import os
 import re
-import types
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Annotated, Any, Literal, Union, get_args, get_origin
+from typing import Any, Literal, get_args, get_origin
 
 import yaml
 from pydantic import BaseModel, ValidationError
@@ -56,6 +55,7 @@ from runner.spec.models import (
     PATTERN_HINTS,
     Combination,
     Spec,
+    bare_type,
     locate,
 )
 from runner.spec.rules import Where, overlaps, rule_problems, vary_key_problems
@@ -709,17 +709,7 @@ def _choice_message(path: tuple[str, ...], given: Any) -> str:
 
 def _strip(tp: Any) -> Any:
     """Drop Annotated and Optional wrappers from a type."""
-    while True:
-        origin = get_origin(tp)
-        if origin is Annotated:
-            tp = get_args(tp)[0]
-        elif origin in (Union, types.UnionType):
-            inner = [a for a in get_args(tp) if a is not type(None)]
-            if len(inner) != 1:
-                return tp
-            tp = inner[0]
-        else:
-            return tp
+    return bare_type(tp)
 
 
 def _child_type(tp: Any, part: str) -> Any:

@@ -12,9 +12,10 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+import types
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated, Any, Literal
+from typing import TYPE_CHECKING, Annotated, Any, Literal, Union, get_args, get_origin
 
 from pydantic import (
     AfterValidator,
@@ -501,3 +502,19 @@ def _sort_keys(value: Any) -> Any:
     if isinstance(value, list):
         return [_sort_keys(v) for v in value]
     return value
+
+
+def bare_type(tp: Any) -> Any:
+    """A type without its ``Annotated`` and ``Optional`` wrappers (the loader's messages
+    and the ``vary`` rules look through them to the model or literal beneath)."""
+    while True:
+        origin = get_origin(tp)
+        if origin is Annotated:
+            tp = get_args(tp)[0]
+        elif origin in (Union, types.UnionType):
+            inner = [a for a in get_args(tp) if a is not type(None)]
+            if len(inner) != 1:
+                return tp
+            tp = inner[0]
+        else:
+            return tp

@@ -14,10 +14,9 @@ from __future__ import annotations
 
 import difflib
 import math
-import types
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Annotated, Any, Union, get_args, get_origin
+from typing import Any, get_args, get_origin
 
 from pydantic import BaseModel
 
@@ -27,6 +26,7 @@ from runner.spec.models import (
     IMPLEMENTED_KINDS,
     NOT_VARIED,
     Spec,
+    bare_type,
     locate,
     nearest_line,
     tier_label,
@@ -380,17 +380,7 @@ def overlaps(need: str, key: str) -> bool:
 
 def _bare(tp: Any) -> Any:
     """A type without its Annotated and Optional wrappers."""
-    while True:
-        origin = get_origin(tp)
-        if origin is Annotated:
-            tp = get_args(tp)[0]
-        elif origin in (Union, types.UnionType):
-            inner = [a for a in get_args(tp) if a is not type(None)]
-            if len(inner) != 1:
-                return tp
-            tp = inner[0]
-        else:
-            return tp
+    return bare_type(tp)
 
 
 def _vary_key_problem(key: str) -> str | None:
