@@ -37,6 +37,7 @@ from runner.present.text import (
     overview_table,
     run_table,
     summary_lines,
+    variation_compare_lines,
     variation_lines,
     variation_run_lines,
     variation_table,
@@ -131,9 +132,10 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--results")
     p.add_argument("--json", action="store_true")
 
-    p = sub.add_parser("compare", help="two runs side by side: scores, edges, distances")
-    p.add_argument("run_a", metavar="RUN_A")
-    p.add_argument("run_b", metavar="RUN_B")
+    p = sub.add_parser("compare", help="two runs side by side: scores, edges, distances; "
+                       "or two variation summaries: the change of each edge's share")
+    p.add_argument("run_a", metavar="RUN_A", help="a run, or a variation summary's id")
+    p.add_argument("run_b", metavar="RUN_B", help="a run, or a variation summary's id")
     p.add_argument("--data", help="rescore on this CSV even if its hash differs from the runs'")
     p.add_argument("--results")
     p.add_argument("--json", action="store_true")
@@ -178,8 +180,10 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--out", metavar="FILE", help="write here instead of stdout")
     p.add_argument("--results")
 
-    p = sub.add_parser("report", help="a self-contained HTML report of a run, with pictures")
-    p.add_argument("run", metavar="RUN")
+    p = sub.add_parser("report", help="a self-contained HTML report of a run (or of a "
+                       "variation summary), with pictures")
+    p.add_argument("run", metavar="RUN", help="a run id (or unique prefix, or run folder), "
+                   "or the id of a variation summary: its combinations and edge shares")
     p.add_argument("--vs", metavar="OTHER_RUN", help="overlay a second run's network")
     p.add_argument("--out", metavar="FILE", help="the HTML file (default "
                    "report-<run id>[-vs-<other id>].html in the current folder)")
@@ -335,12 +339,21 @@ def _not_reproduced(result: RunResult, root: Path) -> str:
             f"\n  see: dagmill compare {twin} {new} --results {root}")
 
 
+def _variation_ref(root: Path, ref: str) -> Path | None:
+    """The variation summary ``ref`` names (its id or a unique prefix that names no
+    run), or None: then ``ref`` is a run."""
+    summary = find_variation(root, ref) if not Path(ref).is_dir() else None
+    if summary is not None and (summary.stem == ref or not any(
+            p.name.startswith(ref) for p in all_runs(root))):
+        return summary
+    return None
+
+
 def _cmd_show(args: argparse.Namespace) -> int:
     """``show RUN``; RUN may also be a variation summary's id (or a unique prefix)."""
     root = results_root(args.results)
-    summary = find_variation(root, args.run) if not Path(args.run).is_dir() else None
-    if summary is not None and (summary.stem == args.run or not any(
-            p.name.startswith(args.run) for p in all_runs(root))):
+    summary = _variation_ref(root, args.run)
+    if summary is not None:
         doc = read_variation(summary)
         print(json.dumps(doc, indent=2, sort_keys=True) if args.json else variation_table(doc))
         return 0
@@ -357,6 +370,9 @@ def _cmd_show(args: argparse.Namespace) -> int:
 
 def _cmd_compare(args: argparse.Namespace) -> int:
     root = results_root(args.results)
+    summaries = [_variation_ref(root, ref) for ref in (args.run_a, args.run_b)]
+    if any(s is not None for s in summaries):
+        return _compare_variations(args, summaries)
     a, b = (read_run(resolve_run(root, ref)) for ref in (args.run_a, args.run_b))
     if a["spec_name"] != b["spec_name"]:
         print(f"warning: comparing runs of two different specs ({a['spec_name']!r} and "
@@ -380,6 +396,29 @@ def _cmd_compare(args: argparse.Namespace) -> int:
         print(json.dumps(result, indent=2, sort_keys=True))
     else:
         print("\n".join(compare_lines(result)))
+    return 0
+
+
+def _compare_variations(args: argparse.Namespace, paths: Sequence[Path | None]) -> int:
+    """``compare`` of two variation summaries: the change of each edge's share and of
+    the stable core."""
+    from runner.compare.variations import compare_variations
+
+    if any(p is None for p in paths):
+        raise InputError(Problem("command line", "compare takes two runs or two variation "
+                                 "summaries, not one of each", key="RUN_B"))
+    if args.data is not None:
+        raise InputError(Problem("command line", "--data rescores runs; two variation "
+                                 "summaries are compared by their stored shares", key="--data"))
+    a, b = (read_variation(p) for p in paths if p is not None)
+    if a["spec_name"] != b["spec_name"]:
+        print(f"warning: comparing variations of two different specs ({a['spec_name']!r} "
+              f"and {b['spec_name']!r})", file=sys.stderr)
+    result = compare_variations(a, b)
+    if args.json:
+        print(json.dumps(result, indent=2, sort_keys=True))
+    else:
+        print("\n".join(variation_compare_lines(result)))
     return 0
 
 
@@ -556,7 +595,26 @@ def _write_report(root: Path, ref: str, other_ref: str | None, out: str | None,
     return path
 
 
+def _write_variation_report(root: Path, summary_path: Path, out: str | None) -> Path:
+    from runner.present.report import default_variation_report_path, render_variation_report
+
+    summary = read_variation(summary_path)
+    first = summary["combinations"][0]["run_id"]
+    record = read_run(resolve_run(root, str(root / summary["spec_name"] / "runs" / first)))
+    path = _out_path(out) if out is not None else default_variation_report_path(summary)
+    atomic_write_text(path, render_variation_report(summary, record))
+    return path
+
+
 def _cmd_report(args: argparse.Namespace) -> int:
+    root = results_root(args.results)
+    summary = _variation_ref(root, args.run)
+    if summary is not None:
+        if args.vs is not None:
+            raise InputError(Problem("command line", "--vs takes runs; compare two variation "
+                                     "summaries with `dagmill compare A B`", key="--vs"))
+        print(f"wrote {_write_variation_report(root, summary, args.out)}")
+        return 0
     path = _write_report(results_root(args.results), args.run, args.vs, args.out,
                          args.show_forbidden)
     print(f"wrote {path}")

@@ -356,3 +356,79 @@ def default_report_path(record: Mapping[str, Any], other: Mapping[str, Any] | No
     if other is not None:
         name += f"-vs-{other['run_id']}"
     return Path(name + ".html")
+
+
+# --------------------------------------------------------------------------- variations
+
+
+def variation_edges(summary: Mapping[str, Any]) -> list[DrawnEdge]:
+    """One drawn edge per directed edge of any combination's DAG (share > 0), its width
+    by its share of combinations (as bootstrap confidence is drawn), the stable core
+    (share 1) as its own kind."""
+    out = []
+    for s in summary["shares"]:
+        a, b = s["edge"]
+        share = float(s["directed"])
+        if share <= 0:
+            continue
+        kind = "stable" if share == 1.0 else "varying"
+        title = (f"{a} -> {b}, in {share:.0%} of combinations"
+                 + (" (stable core)" if kind == "stable" else "")
+                 + f"; in the class in {float(s['class']):.0%}")
+        out.append(DrawnEdge(a, b, kind, title, share))
+    return out
+
+
+def variation_context(summary: Mapping[str, Any], record: Mapping[str, Any]
+                      ) -> dict[str, Any]:
+    """The values of a variation summary's page: its combinations (values, run, score,
+    edges), the shares table and the network of the union of edges in the tier bands of
+    ``record`` (one combination's run: its normalised spec's tiers and columns)."""
+    keys = list(summary["keys"])
+    combos = [{"cells": [c["values"][k] for k in keys], "run_id": c["run_id"],
+               "score": c["score"]["name"], "value": c["score"]["value"],
+               "edges": c["edges"]} for c in summary["combinations"]]
+    drawn = variation_edges(summary)
+    names = _names(record)
+    tiers = record.get("spec", {}).get("tiers", [])
+    bands = layered(names, tiers, [[e.source, e.target] for e in drawn], _tier_names(record))
+    n = len(summary["combinations"])
+    caption = (f"Edges of variation {summary['summary_id']}: {len(drawn)} seen in any of "
+               f"{n} combinations, {len(summary['stable_core']['directed'])} in every one")
+    texts = {"band": band_legend(bands),
+             "confidence": f"width: share of combinations (of {n})"}
+    svg = network_svg("vary", bands, _index(names), drawn, caption, texts)
+    shares = sorted(summary["shares"], key=lambda s: (-s["directed"], -s["class"],
+                                                       s["edge"][0], s["edge"][1]))
+    return {"varied": keys, "combinations": combos, "shares": shares,
+            "core": summary["stable_core"], "caption": caption,
+            # Markup: the SVG's text is escaped by runner.present.svg.
+            "svg": Markup(svg)}
+
+
+def render_variation_report(summary: Mapping[str, Any], record: Mapping[str, Any]) -> str:
+    """The HTML page of a variation summary.
+
+    Parameters
+    ----------
+    summary : mapping
+        The variation summary (``variations/<id>.json``).
+    record : mapping
+        The run record of one of its combinations (the first): the tier bands and the
+        columns of the picture come from its normalised spec.
+
+    Returns
+    -------
+    str
+        The page; the same inputs give the same text.
+    """
+    page = environment().get_template("variation.html.j2")
+    return page.render(
+        title=f"dagmill report: {summary['spec_name']}, variation {summary['summary_id']}",
+        summary=summary, caution=record.get("caution") or CAUTION, version=__version__,
+        palette={"paper": PAPER, "ink": INK, "muted": MUTED},
+        vary=variation_context(summary, record))
+
+
+def default_variation_report_path(summary: Mapping[str, Any]) -> Path:
+    return Path(f"report-{summary['summary_id']}.html")

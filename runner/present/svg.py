@@ -53,6 +53,8 @@ STYLES: dict[str, Style] = {
     "added": Style("#3f8a5f", 2.4, None, "added in B"),
     "removed": Style("#b8603f", 2.4, "7 4", "removed in B (was in A)"),
     "reversed": Style("#6f5fa8", 2.4, "2 3", "reversed in B (drawn as in B)"),
+    "stable": Style("#2e5e4e", 1.6, None, "stable core: in every combination"),
+    "varying": Style("#4f6470", 1.6, "6 3", "in some combinations only"),
 }
 
 DIFF_KINDS = ("common", "added", "removed", "reversed")

@@ -511,3 +511,38 @@ def variation_run_lines(summary: Mapping[str, Any], results: Path) -> list[str]:
             f" {len(core['directed'])} edges in every one ({len(summary['shares'])} seen "
             f"in any); summary {summary['summary_id']}",
             f"shares: dagmill show {summary['summary_id']} --results {results}"]
+
+
+def variation_compare_lines(result: Mapping[str, Any]) -> list[str]:
+    """``compare`` of two variation summaries (from
+    :func:`runner.compare.variations.compare_variations`): the summaries, every edge
+    whose share changed (directed, class, adjacent: A, B and the change), then the
+    stable core kept, gained and lost."""
+    a, b = result["a"], result["b"]
+    out = [f"A  variation {a['summary_id']}  spec {a['spec_name']}  {a['combinations']} "
+           f"combinations of {', '.join(a['keys'])}",
+           f"B  variation {b['summary_id']}  spec {b['spec_name']}  {b['combinations']} "
+           f"combinations of {', '.join(b['keys'])}"]
+    if not result["same_spec"]:
+        out.append("note: the summaries are of two different specs")
+    changed = {tuple(e) for e in result["changed"]}
+    rows = [[f"{e['edge'][0]} -> {e['edge'][1]}",
+             *(f"{e['a'][k]:.3f} -> {e['b'][k]:.3f} ({e['delta'][k]:+.3f})"
+               for k in ("directed", "class", "adjacent"))]
+            for e in result["edges"] if tuple(e["edge"]) in changed]
+    out.append("")
+    if rows:
+        out += [f"share changes ({len(rows)} of {len(result['edges'])} edges)",
+                render_table(["edge", "directed", "class", "adjacent"], rows)]
+    else:
+        out.append(f"no share changed ({len(result['edges'])} edges)")
+    out.append("")
+    for kind in ("directed", "class"):
+        core = result["stable_core"][kind]
+        out.append(f"stable core ({kind}): {len(core['kept'])} kept, "
+                   f"gained {_edge_list(core['gained'])}, lost {_edge_list(core['lost'])}")
+    return out
+
+
+def _edge_list(edges: Sequence[Sequence[str]]) -> str:
+    return ", ".join(f"{x} -> {y}" for x, y in edges) or "none"
