@@ -732,12 +732,20 @@ def read_variation(path: Path) -> dict[str, Any]:
 
 
 def list_variations(root: Path, spec_name: str) -> list[Path]:
-    """A spec's variation summaries, oldest first (by id: the time comes first)."""
+    """A spec's variation summaries, oldest first: by the time in the id, then (summaries
+    of the same second, whose ids otherwise sort by hash) by when the file was written."""
     folder = root / spec_name / VARIATIONS_FOLDER
     if not folder.is_dir():
         return []
+
+    def written(path: Path) -> int:
+        try:
+            return path.stat().st_mtime_ns
+        except OSError:
+            return 0
+
     return sorted((p for p in folder.glob("*.json") if SUMMARY_ID.match(p.stem)),
-                  key=lambda p: (p.stem[:16], len(p.stem), p.stem))
+                  key=lambda p: (p.stem[:16], written(p), p.stem))
 
 
 def find_variation(root: Path, ref: str) -> Path | None:
