@@ -1,4 +1,5 @@
-"""CSV -> :class:`Dataset`: state labels, small-integer codes and the file's sha256.
+"""CSV or Parquet -> :class:`Dataset`: state labels, small-integer codes and the file's
+sha256.
 
 Reading rules (the same for every command):
 
@@ -9,8 +10,16 @@ Reading rules (the same for every command):
   from values and from column names.
 * A value is *missing* when, after stripping, it is one of :data:`MISSING_SPELLINGS`:
   the empty string, ``NA``, ``N/A``, ``NaN``, ``nan``, ``null``, ``NULL`` or ``None``
-  (case as written). A spelling that is one of a column's declared states is a state of
-  that column, not a missing value.
+  (case as written), or of the caller's ``missing_values`` (``dataset.missing_values``).
+  A spelling that is one of a column's declared states is a state of that column, not a
+  missing value.
+* ``use`` / ``drop`` (``dataset.use`` / ``dataset.drop``) select columns right after the
+  header; the others are never encoded. The sha256 is always the whole file's.
+* A path ending in ``.parquet`` or ``.pq`` is read with pyarrow (the ``parquet`` extra):
+  each column's values become the text CSV would show (``3``, ``0.25``, ``True``; nulls
+  and float NaN missing) and go through the same encoding; an Arrow dictionary column
+  keeps its category order as its state order (reason ``categorical``) unless the caller
+  declares states. Its messages name rows from 1, and its sha256 is of the file's bytes.
 * States are sorted (Python string order, so ``"10" < "9"``) unless the caller declares
   them for a column, in which case they are exactly the declared ones, in that order.
 * Line numbers in messages are file lines, the header being line 1. Data frames that do
@@ -32,8 +41,10 @@ from __future__ import annotations
 
 import codecs
 import csv
+import difflib
 import errno
 import hashlib
+import importlib
 import io
 import math
 import mmap
@@ -50,6 +61,9 @@ import pandas
 
 from runner.errors import InputError, Problem
 from runner.files import special_file_kind
+
+#: Data file names read as Parquet (:func:`is_parquet`); every other file is CSV.
+PARQUET_SUFFIXES: tuple[str, ...] = (".parquet", ".pq")
 
 #: Values (after stripping whitespace) read as "missing".
 MISSING_SPELLINGS: tuple[str, ...] = ("", "NA", "N/A", "NaN", "nan", "null", "NULL", "None")
@@ -170,6 +184,9 @@ def loader_settings(dataset: Mapping[str, Any]) -> dict[str, Any]:
     return {
         "missing": dataset.get("missing", "error"),
         "max_states": dataset.get("max_states", 64),
+        "missing_values": dataset.get("missing_values"),
+        "use": dataset.get("use"),
+        "drop": dataset.get("drop"),
         "declared_states": {n: list(c["states"]) for n, c in columns.items()
                             if c.get("states")},
         "declared_kinds": {n: c.get("kind") or "discrete" for n, c in columns.items()},
@@ -186,32 +203,50 @@ def load_dataset(
     expected_sha256: str | None = None,
     display_path: str | None = None,
     key_prefix: str = "dataset",
+    missing_values: Sequence[str] | None = None,
+    use: Sequence[str] | None = None,
+    drop: Sequence[str] | None = None,
 ) -> Dataset:
     """Read, check and encode a CSV file; raise :class:`InputError` with every problem.
 
     ``display_path`` is how the file is named in messages (default: ``path`` as given);
     ``key_prefix`` is the spec section the options come from, used in message keys
-    (``dataset.sha256``, ``dataset.max_states``, ...).
+    (``dataset.sha256``, ``dataset.max_states``, ...). ``missing_values`` are the
+    spellings that mean missing (None: :data:`MISSING_SPELLINGS`). ``use`` (only these
+    columns) or ``drop`` (all but these) select columns right after the header: the
+    others are not encoded; the selected ones keep the file's order. The sha256 is the
+    whole file's.
     """
     _check_policy(missing)
     file = display_path if display_path is not None else str(path)
     problems: list[Problem] = []
-    sha, table = _read_table(Path(path), file, key_prefix, problems, expected_sha256)
-    names, position_problems = _column_names(table.header, file, "in the header", line=1)
+    selection = _Selection(use, drop, key_prefix)
+    parquet = is_parquet(path)
+    if parquet:
+        sha, table = _read_parquet(Path(path), file, key_prefix, problems, expected_sha256,
+                                   selection)
+        names, position_problems = _column_names(table.header, file, "in the schema",
+                                                 line=None)
+    else:
+        sha, table = _read_table(Path(path), file, key_prefix, problems, expected_sha256,
+                                 selection)
+        names, position_problems = _column_names(table.header, file, "in the header", line=1)
     problems.extend(position_problems)
+    names = [names[j] for j in table.selected]
     if table.data_rows == 0:
-        problems.append(Problem(file, "has a header (line 1) but no data rows", line=1))
+        problems.append(Problem(file, "has no data rows", line=None) if parquet else
+                        Problem(file, "has a header (line 1) but no data rows", line=1))
         raise InputError(problems)
-    if len(names) == 1 and any(sep in names[0] for sep in ";\t|"):
+    if not parquet and len(names) == 1 and any(sep in names[0] for sep in ";\t|"):
         problems.append(Problem(
             file, f"the header has a single column {names[0]!r}; dagmill reads comma-separated "
             "files only", line=1, key=names[0], severity="warning"))
 
     columns, table.columns = table.columns, []
     encoded = _encode_columns(
-        names, columns, file=file, locate=table.locate, unit="line",
+        names, columns, file=file, locate=table.locate, unit="row" if parquet else "line",
         declared=declared_states, max_states=max_states, missing=missing,
-        key_prefix=key_prefix, kinds=declared_kinds)
+        key_prefix=key_prefix, kinds=declared_kinds, missing_values=missing_values)
     problems.extend(encoded.problems)
     if any(p.severity == "error" for p in problems):
         raise InputError(problems)
@@ -230,6 +265,7 @@ def encode_frame(
     max_states: int = 64,
     missing: str = "error",
     declared_kinds: Mapping[str, str] | None = None,
+    missing_values: Sequence[str] | None = None,
 ) -> Dataset:
     """Check and encode an in-memory table by the same rules as :func:`load_dataset`.
 
@@ -252,7 +288,7 @@ def encode_frame(
     encoded = _encode_columns(
         names, columns, file=path, locate=lambda rows: rows + 1, unit="row",
         declared=declared_states, max_states=max_states, missing=missing,
-        key_prefix="dataset", kinds=declared_kinds)
+        key_prefix="dataset", kinds=declared_kinds, missing_values=missing_values)
     problems.extend(encoded.problems)
     if any(p.severity == "error" for p in problems):
         raise InputError(problems)
@@ -270,7 +306,7 @@ def _check_policy(missing: str) -> None:
 
 
 def _read_table(target: Path, file: str, key_prefix: str, problems: list[Problem],
-                expected_sha256: str | None) -> tuple[str, _Table]:
+                expected_sha256: str | None, selection: _Selection) -> tuple[str, _Table]:
     """The file's sha256 and its table, read in two streaming passes over one open file:
     the bytes (hash, UTF-8, NUL bytes, emptiness, where the text ends), then the CSV."""
     key = f"{key_prefix}.path"
@@ -279,13 +315,9 @@ def _read_table(target: Path, file: str, key_prefix: str, problems: list[Problem
         with handle:
             before = os.fstat(handle.fileno())
             scan = _scan(handle)
-            if expected_sha256 is not None and expected_sha256.strip().lower() != scan.sha256:
-                problems.append(Problem(
-                    file, f"the file's sha256 is {scan.sha256}, but {expected_sha256} is pinned; "
-                    f"the data has changed (update {key_prefix}.sha256 if the new file is "
-                    "intended)", key=f"{key_prefix}.sha256"))
+            problems.extend(_pin_problems(scan.sha256, expected_sha256, file, key_prefix))
             _check_text(scan, file, problems)
-            table = _parse_body(handle, scan, file, problems)
+            table = _parse_body(handle, scan, file, problems, selection)
             after = os.fstat(handle.fileno())
     except PermissionError:
         raise InputError(Problem(file, "cannot be read: permission denied", key=key)) from None
@@ -296,6 +328,119 @@ def _read_table(target: Path, file: str, key_prefix: str, problems: list[Problem
         raise InputError(Problem(file, "changed while it was being read; read it again once "
                                  "it is complete", key=key))
     return scan.sha256, table
+
+
+def _pin_problems(sha256: str, expected: str | None, file: str,
+                  key_prefix: str) -> list[Problem]:
+    """A problem when the file's sha256 is not the pinned one."""
+    if expected is None or expected.strip().lower() == sha256:
+        return []
+    return [Problem(file, f"the file's sha256 is {sha256}, but {expected} is pinned; the data "
+                    f"has changed (update {key_prefix}.sha256 if the new file is intended)",
+                    key=f"{key_prefix}.sha256")]
+
+
+# --------------------------------------------------------------------------- Parquet
+
+
+def is_parquet(path: str | Path) -> bool:
+    """Whether a data path is read as Parquet: its name ends in ``.parquet`` or ``.pq``
+    (any case); every other file is read as CSV."""
+    return Path(path).suffix.lower() in PARQUET_SUFFIXES
+
+
+def _pyarrow(file: str, key: str) -> tuple[Any, Any]:
+    """``pyarrow`` and ``pyarrow.parquet`` (the optional extra), or bad input saying how
+    to install them."""
+    try:
+        arrow = importlib.import_module("pyarrow")
+        parquet = importlib.import_module("pyarrow.parquet")
+    except ImportError:
+        raise InputError(Problem(
+            file, "is a Parquet file, and reading Parquet needs pyarrow, which is not "
+            "installed: pip install 'dagmill[parquet]'", key=key)) from None
+    return arrow, parquet
+
+
+def _read_parquet(target: Path, file: str, key_prefix: str, problems: list[Problem],
+                  expected_sha256: str | None, selection: _Selection) -> tuple[str, _Table]:
+    """The file's sha256 (of its bytes) and its selected columns, read with pyarrow one
+    column at a time (memory: one Arrow column besides the codes)."""
+    key = f"{key_prefix}.path"
+    arrow, parquet = _pyarrow(file, key)
+    handle = _open_regular(target, file, key)
+    with handle:
+        try:
+            digest = hashlib.sha256()
+            while chunk := _read_full(handle, READ_BLOCK):
+                digest.update(chunk)
+            sha = digest.hexdigest()
+            problems.extend(_pin_problems(sha, expected_sha256, file, key_prefix))
+            handle.seek(0)
+            reader = parquet.ParquetFile(handle)
+            header = [str(n) for n in reader.schema_arrow.names]
+            rows = int(reader.metadata.num_rows)
+        except (arrow.ArrowException, OSError, ValueError) as exc:
+            problems.append(Problem(file, f"is not a Parquet file that can be read ("
+                                    f"{str(exc).strip() or type(exc).__name__})", key=key))
+            raise InputError(problems) from None
+        selected, unknown = selection.positions(header, file, line=None)
+        if unknown:
+            problems.extend(unknown)
+            raise InputError(problems)
+        columns: list[_Factorised] = []
+        for j in selected:
+            try:
+                chunked = reader.read(columns=[header[j]]).column(0)
+            except (arrow.ArrowException, OSError, ValueError) as exc:
+                problems.append(Problem(file, f"column {header[j]!r} could not be read ("
+                                        f"{str(exc).strip()})", key=header[j]))
+                continue
+            column = _arrow_column(arrow, chunked, header[j], file, problems)
+            if column is not None:
+                columns.append(column)
+    if any(p.severity == "error" for p in problems):
+        raise InputError(problems)
+    return sha, _Table(header, columns, rows, lambda positions: positions + 1, selected)
+
+
+def _arrow_column(arrow: Any, chunked: Any, name: str, file: str,
+                  problems: list[Problem]) -> _Factorised | None:
+    """One Arrow column as its distinct values (as text, the way CSV spells them) and
+    each row's position among them; nulls (and a float NaN) are missing. A dictionary
+    (categorical) column keeps its category order. Nested and binary types are refused."""
+    types = arrow.types
+    kind = chunked.type
+    if types.is_dictionary(kind):
+        categorical = chunked.to_pandas().array
+        order = [_arrow_text(c) for c in categorical.categories]
+        raw = np.asarray(categorical.codes, dtype=np.intp)
+        uniques: list[Any] = list(order)
+        if (raw < 0).any():
+            raw = np.where(raw < 0, len(uniques), raw)
+            uniques.append(None)
+        stripped = tuple(str(c).strip() for c in order)
+        unique_order = len(set(stripped)) == len(stripped) and None not in order
+        return _Factorised(raw, uniques, stripped if unique_order else None)
+    if (types.is_nested(kind) or types.is_binary(kind) or types.is_large_binary(kind)
+            or types.is_fixed_size_binary(kind)):
+        problems.append(Problem(file, f"column {name!r} has Arrow type {kind}, which dagmill "
+                                "cannot read as states or numbers", key=name))
+        return None
+    compute = importlib.import_module("pyarrow.compute")
+    distinct = compute.unique(chunked).drop_null()
+    positions = compute.index_in(chunked, value_set=distinct)
+    raw = np.asarray(positions.fill_null(len(distinct)).to_numpy(), dtype=np.intp)
+    uniques = [_arrow_text(v) for v in distinct.to_pylist()] + [None]
+    return _Factorised(raw, uniques)
+
+
+def _arrow_text(value: Any) -> str | None:
+    """A Parquet value as CSV text: ``str`` (``3``, ``0.1``, ``True``), None for a float
+    NaN."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return None
+    return value if isinstance(value, str) else str(value)
 
 
 def _open_regular(target: Path, file: str, key: str) -> BinaryIO:
@@ -445,10 +590,48 @@ def _check_text(scan: _Scan, file: str, problems: list[Problem]) -> None:
 
 @dataclass
 class _Table:
-    header: list[str]
-    columns: list[_Factorised]
+    header: list[str]  # every column of the file
+    columns: list[_Factorised]  # the selected ones
     data_rows: int
     locate: Callable[[np.ndarray], np.ndarray]
+    selected: list[int]  # positions in ``header`` of the selected columns
+
+
+@dataclass(frozen=True)
+class _Selection:
+    """``dataset.use`` or ``dataset.drop`` (at most one is given; both None: every
+    column)."""
+
+    use: Sequence[str] | None = None
+    drop: Sequence[str] | None = None
+    key_prefix: str = "dataset"
+
+    def positions(self, header: Sequence[str], file: str,
+                  line: int | None = 1) -> tuple[list[int], list[Problem]]:
+        """The positions of the selected columns in ``header`` (file order), and a problem
+        for each listed name that is not a column."""
+        names = [h.strip() for h in header]
+        listed, key = ((self.use, "use") if self.use is not None
+                       else (self.drop, "drop") if self.drop is not None else (None, ""))
+        if listed is None:
+            return list(range(len(names))), []
+        problems = []
+        for i, name in enumerate(listed):
+            if name not in names:
+                close = difflib.get_close_matches(name, [n for n in names if n], n=1)
+                hint = (f"; did you mean {close[0]!r}?" if close
+                        else f"; its columns are {', '.join(names[:12])}"
+                        + (", ..." if len(names) > 12 else ""))
+                problems.append(Problem(
+                    file, f"{self.key_prefix}.{key} names {name!r}, which is not a column "
+                    f"of {file}{hint}", line=line, key=f"{self.key_prefix}.{key}.{i}",
+                    value=name))
+        chosen = set(listed)
+        keep = [j for j, n in enumerate(names) if (n in chosen) == (key == "use")]
+        if not keep and not problems:
+            problems.append(Problem(file, f"{self.key_prefix}.drop leaves no column of {file}",
+                                    line=line, key=f"{self.key_prefix}.drop"))
+        return keep, problems
 
 
 def _body_blocks(handle: BinaryIO, scan: _Scan) -> Iterator[bytes]:
@@ -535,7 +718,8 @@ class _FieldCounts:
         return out
 
 
-def _parse_body(handle: BinaryIO, scan: _Scan, file: str, problems: list[Problem]) -> _Table:
+def _parse_body(handle: BinaryIO, scan: _Scan, file: str, problems: list[Problem],
+                selection: _Selection) -> _Table:
     """The header and the columns, parsed block by block into small-integer codes.
 
     Every record must have as many fields as the header (a blank line in a one-column
@@ -558,7 +742,11 @@ def _parse_body(handle: BinaryIO, scan: _Scan, file: str, problems: list[Problem
         problems.append(Problem(file, "the header (line 1) is blank; the first line must name "
                                 "the columns", line=1))
         raise InputError(problems)
-    parser = _BlockParser(header_bytes, width, scan.end - scan.start)
+    selected, unknown = selection.positions(header, file)
+    if unknown:
+        problems.extend(unknown)
+        raise InputError(problems)
+    parser = _BlockParser(header_bytes, width, scan.end - scan.start, selected)
     if scan.simple:
         rows, locate = _simple_records(lines, blocks, parser)
     else:
@@ -573,7 +761,7 @@ def _parse_body(handle: BinaryIO, scan: _Scan, file: str, problems: list[Problem
         problems.append(Problem(file, f"could not be read as CSV consistently: found {rows:,}"
                                 f" records, but the CSV reader read {parser.rows:,} rows"))
         raise InputError(problems)
-    return _Table(header, parser.columns() if rows else [], rows, locate)
+    return _Table(header, parser.columns() if rows else [], rows, locate, selected)
 
 
 def _simple_records(lines: _Lines, blocks: Iterator[bytes],
@@ -655,9 +843,12 @@ class _BlockParser:
     value is parsed any more; the field counts are still checked to the end.
     """
 
-    def __init__(self, header_bytes: bytes, width: int, text_bytes: int) -> None:
+    def __init__(self, header_bytes: bytes, width: int, text_bytes: int,
+                 selected: Sequence[int] | None = None) -> None:
         self.header = header_bytes
         self.width = width
+        #: the columns parsed and stored (positions in the header, in file order)
+        self.selected = list(range(width)) if selected is None else list(selected)
         self.text_bytes = max(1, text_bytes)  # to size the code arrays from the first blocks
         self.parsed_bytes = 0
         self.filled = 0  # rows whose codes are stored
@@ -666,7 +857,7 @@ class _BlockParser:
         self.rows = 0  # rows pandas read
         self.lookups: list[dict[str, int]] = [{} for _ in range(width)]
         self.stores: list[np.ndarray | None] = [None] * width
-        self.as_text = [False] * width
+        self.as_text = [False] * width  # indexed by header position; used at ``selected``
         self.encoding = True  # False once pandas and the record count disagree
 
     @property
@@ -715,13 +906,14 @@ class _BlockParser:
         """The block's values: categories, or text for ``columns`` (None, with
         :attr:`failure` set, when pandas cannot read it)."""
         dtype: Any = object if columns is not None else {
-            j: object if self.as_text[j] else "category" for j in range(self.width)}
+            j: object if self.as_text[j] else "category" for j in self.selected}
         try:
             with warnings.catch_warnings():  # a block may be parsed before its counts fail
                 warnings.simplefilter("ignore", pandas.errors.ParserWarning)
                 return pandas.read_csv(
                     io.BytesIO(self.header + part), encoding="utf-8", header=0,
-                    names=list(range(self.width)), usecols=columns, dtype=dtype,
+                    names=list(range(self.width)),
+                    usecols=self.selected if columns is None else columns, dtype=dtype,
                     keep_default_na=False, na_filter=False, skip_blank_lines=False,
                     index_col=False, engine="c")
         except (pandas.errors.ParserError, ValueError) as exc:
@@ -732,23 +924,22 @@ class _BlockParser:
         """Add a block's codes. A column whose categories pandas turned into numbers or
         booleans ("01" and "1" would both be 1) is read again as text, and as text in
         every later block."""
-        retry = [j for j in range(self.width) if not self.as_text[j]
-                 and pandas.api.types.infer_dtype(frame.iloc[:, j].cat.categories,
+        retry = [j for j in self.selected if not self.as_text[j]
+                 and pandas.api.types.infer_dtype(frame[j].cat.categories,
                                                   skipna=False) != "string"]
         again = self._frame(part, retry) if retry else None
         if retry and again is None:
             return
         self.parsed_bytes += len(part)
         start = self.filled
-        for j in range(self.width):
+        for j in self.selected:
             codes: np.ndarray
             if j in retry or self.as_text[j]:
-                source = again.iloc[:, retry.index(j)] if again is not None and j in retry \
-                    else frame.iloc[:, j]
+                source = again[j] if again is not None and j in retry else frame[j]
                 codes, uniques = pandas.factorize(source.to_numpy(dtype=object))
                 labels = list(uniques)
             else:
-                column = frame.iloc[:, j]
+                column = frame[j]
                 codes = column.cat.codes.to_numpy()
                 labels = column.cat.categories.tolist()
             lookup = self.lookups[j]
@@ -776,9 +967,9 @@ class _BlockParser:
         store[start:need] = codes
 
     def columns(self) -> list[_Factorised]:
-        """Each column's codes (one array) and its distinct raw values."""
+        """Each selected column's codes (one array) and its distinct raw values."""
         out = []
-        for j in range(self.width):
+        for j in self.selected:
             store, self.stores[j] = self.stores[j], None
             raw = store[:self.filled] if store is not None else np.zeros(0, np.uint8)
             out.append(_Factorised(raw, list(self.lookups[j])))
@@ -874,6 +1065,7 @@ class _Factorised:
 
     raw_codes: np.ndarray
     uniques: list[Any]
+    order: tuple[str, ...] | None = None  # the file's own state order (Arrow dictionary)
 
 
 @dataclass
@@ -883,6 +1075,7 @@ class _Column:
     raw_codes: np.ndarray  # one per row: intp, or the narrowest unsigned type
     labels: list[str | None]  # stripped label per raw unique; None = missing
     declared: tuple[str, ...] | None
+    categorical: bool = False  # ``declared`` is the file's category order
 
 
 def _factorise(values: np.ndarray) -> _Factorised:
@@ -896,14 +1089,17 @@ def _factorise(values: np.ndarray) -> _Factorised:
     return _Factorised(raw_codes, labels)
 
 
-def _labelled(column: _Factorised, declared: tuple[str, ...] | None) -> _Column:
-    """Strip the (few) distinct raw values and mark the missing ones."""
-    spellings = set(MISSING_SPELLINGS) - set(declared or ())
+def _labelled(column: _Factorised, declared: tuple[str, ...] | None,
+              missing_values: Sequence[str] = MISSING_SPELLINGS,
+              categorical: bool = False) -> _Column:
+    """Strip the (few) distinct raw values and mark the missing ones (``missing_values``,
+    a declared state aside; a missing value of a frame is always missing)."""
+    spellings = set(missing_values) - set(declared or ())
     labels: list[str | None] = []
     for unique in column.uniques:
         label = None if unique is None else str(unique).strip()
         labels.append(None if label is None or label in spellings else label)
-    return _Column(column.raw_codes, labels, declared)
+    return _Column(column.raw_codes, labels, declared, categorical)
 
 
 @dataclass
@@ -955,6 +1151,7 @@ def _encode_columns(
     missing: str,
     key_prefix: str,
     kinds: Mapping[str, str] | None = None,
+    missing_values: Sequence[str] | None = None,
 ) -> _Encoded:
     """Check and encode the columns: missing values, then each column's kind, states and
     codes; every problem is collected in ``_Encoded.problems``. The columns are
@@ -962,7 +1159,8 @@ def _encode_columns(
     raw codes and the code matrix, never a second copy of all of them."""
     report = _Report(file, locate, unit, key_prefix)
     n_rows = len(columns[0].raw_codes) if columns else 0
-    labelled = _parse_columns(names, columns, declared or {}, report)
+    spellings = MISSING_SPELLINGS if missing_values is None else tuple(missing_values)
+    labelled = _parse_columns(names, columns, declared or {}, spellings, report)
     keep = _rows_to_keep(names, labelled, n_rows, missing, report)
     parsed: list[_Column | None] = list(labelled)
     del labelled
@@ -986,7 +1184,8 @@ def _encode_columns(
 
 
 def _parse_columns(names: Sequence[str], columns: list[_Factorised],
-                   declared: Mapping[str, Sequence[str]], report: _Report) -> list[_Column]:
+                   declared: Mapping[str, Sequence[str]], spellings: Sequence[str],
+                   report: _Report) -> list[_Column]:
     """Each column labelled, its declared states (if any) checked (``columns`` is
     emptied)."""
     parsed = []
@@ -996,7 +1195,10 @@ def _parse_columns(names: Sequence[str], columns: list[_Factorised],
             states = tuple(states)
             report.problems.extend(_declared_problems(name, states, report.file,
                                                       report.key_prefix))
-        parsed.append(_labelled(values, states))
+            parsed.append(_labelled(values, states, spellings))
+        else:
+            parsed.append(_labelled(values, values.order, spellings,
+                                    categorical=values.order is not None))
     columns.clear()
     return parsed
 
@@ -1109,7 +1311,10 @@ def _discrete_column(name: str, col: _Column, raw: np.ndarray, declared_kind: st
 
 
 def _discrete_reason(col: _Column, declared_kind: str | None, seen: list[str]) -> str:
-    """Why a column is discrete: declared, numbers with few values, or text."""
+    """Why a column is discrete: declared, a file's categorical column, numbers with few
+    values, or text."""
+    if col.categorical and declared_kind is None:
+        return "categorical"
     if col.declared is not None or declared_kind is not None:
         return "declared"
     if seen and not np.isnan(_numbers(seen)).any():
@@ -1133,7 +1338,8 @@ def _state_order(name: str, col: _Column, seen: list[str], max_states: int,
     unseen = [s for s in states if s not in set(seen)]
     if unseen:
         report.warnings.append(Problem(
-            report.file, f"declared {_plural(len(unseen), 'state', bare=True)} "
+            report.file, f"{'categorical' if col.categorical else 'declared'} "
+            f"{_plural(len(unseen), 'state', bare=True)} "
             f"{_and_list([repr(s) for s in unseen])} never "
             f"{'occurs' if len(unseen) == 1 else 'occur'} in the data; kept, with zero "
             "counts", key=name, severity="warning"))

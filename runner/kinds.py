@@ -2,8 +2,10 @@
 
 * Under a discrete score (loglik, aic, bic, bdeu, k2) every continuous column must be
   cut into bins by the spec (``dataset.columns.NAME: {kind: continuous, bins: 4,
-  binning: quantile | equal-width}``); the bin edges are computed from the data, or taken
-  as stored (a baseline's, so that a new data drop is cut at the same edges).
+  binning: quantile | equal-width}``), or by ``dataset.bins`` (and ``dataset.binning``)
+  for every continuous column with no ``columns`` entry of its own; the bin edges are
+  computed from the data, or taken as stored (a baseline's, so that a new data drop is
+  cut at the same edges).
 * Under a Gaussian score (gaussian-loglik, gaussian-bic, bge) every column must be
   continuous and unbinned; a discrete column among continuous ones is refused, naming
   the columns and the ways out. A constant column, or columns that are linear
@@ -47,6 +49,7 @@ REASON_TEXT = {
     "inferred-numeric-many-values": "numeric, with more distinct values than "
                                     "dataset.max_states",
     "binned": "continuous, but cut into bins by the spec",
+    "categorical": "a categorical (Arrow dictionary) column of the Parquet file",
 }
 
 
@@ -85,14 +88,25 @@ def resolve_columns(
     line_of: Callable[[str], int | None] = lambda key: None,
     stored_bins: Mapping[str, Mapping[str, Any]] | None = None,
     stored_from: str = "",
+    default_bins: int | None = None,
+    default_binning: str | None = None,
 ) -> Resolved:
     """Check the columns' kinds against ``score`` (the spec's ``score`` block) and bin
     what must be binned; raise InputError with every problem.
 
     ``stored_bins`` maps a column to the ``binning`` block of an earlier record; its
     edges are reused when that block's ``method`` and ``bins`` match the spec's.
+
+    ``default_bins`` and ``default_binning`` (``dataset.bins`` and ``dataset.binning``)
+    bin, under a discrete score, every continuous column that has no entry of its own in
+    ``columns_spec``, exactly as if each had ``{kind: continuous, bins, binning}`` there.
     """
     name = str(score.get("name", "bic"))
+    if default_bins is not None and not is_gaussian(name) and not is_mixed(name):
+        columns_spec = {**{n: {"kind": "continuous", "bins": default_bins,
+                               "binning": default_binning}
+                           for i, n in enumerate(dataset.names)
+                           if dataset.kind(i) == "continuous"}, **columns_spec}
     if is_gaussian(name):
         return _for_gaussian(dataset, columns_spec, score, spec_file, data_file, line_of)
     resolved = _for_discrete(dataset, columns_spec, name, spec_file, data_file, line_of,
@@ -196,7 +210,8 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
             continue
         if bins is None:
             ways = ("declare bins for it ({key}: {{kind: continuous, bins: 4, binning: "
-                    "quantile}}), or drop the column from the data file, or use a Gaussian "
+                    "quantile}}; or dataset.bins: 4 for every continuous column), or drop "
+                    "the column (dataset.drop: [...]), or use a Gaussian "
                     "score (" + ", ".join(GAUSSIAN_SCORES) + ") if every column is continuous, "
                     "or " + ", ".join(MIXED_SCORES) + " to model it as continuous beside "
                     "discrete columns")

@@ -149,7 +149,8 @@ def _prepare_loaded(spec: Spec, spec_display: str, problems: list[Problem],
            for p in problems):
         raise InputError(problems)
     normal = normalised_spec(spec)
-    binned = any(c.get("bins") for c in normal["dataset"]["columns"].values())
+    binned = bool(normal["dataset"].get("bins")) or any(
+        c.get("bins") for c in normal["dataset"]["columns"].values())
     stored, stored_from = (baseline_bins(bins_from, spec.name) if bins_from and binned
                            else ({}, ""))
     try:
@@ -198,7 +199,9 @@ def resolve_data(normal: Mapping[str, Any], dataset: Dataset, *, spec_file: str,
     cut into bins (at ``stored_bins`` when they fit the spec's settings)."""
     return resolve_columns(dataset, normal["dataset"].get("columns") or {}, normal["score"],
                            spec_file=spec_file, data_file=data_file, line_of=line_of,
-                           stored_bins=stored_bins, stored_from=stored_from)
+                           stored_bins=stored_bins, stored_from=stored_from,
+                           default_bins=normal["dataset"].get("bins"),
+                           default_binning=normal["dataset"].get("binning"))
 
 
 def learning_rows(normal: Mapping[str, Any], dataset: Dataset) -> tuple[Dataset, Dataset | None]:

@@ -133,6 +133,21 @@ class DatasetSpec(_Section):
         "numeric column with more is continuous.")
     columns: dict[str, ColumnSpec] = Field(
         default_factory=dict, description="Optional per-column kind and state order.")
+    missing_values: list[StrictStr] | None = Field(
+        None, description="The spellings (after stripping whitespace) that mean a missing "
+        "value; null: '', NA, N/A, NaN, nan, null, NULL and None. A spelling that is a "
+        "declared state of a column is a state there.")
+    use: Annotated[list[Variable], Field(min_length=1)] | None = Field(
+        None, description="Only these columns of the data file are read (in the file's "
+        "order); not with 'drop'.")
+    drop: Annotated[list[Variable], Field(min_length=1)] | None = Field(
+        None, description="These columns of the data file are not read; not with 'use'.")
+    bins: Annotated[StrictInt, Field(ge=2)] | None = Field(
+        None, description="Under a discrete score: the number of bins of every continuous "
+        "column that has no entry under 'columns' (at least 2).")
+    binning: Literal["quantile", "equal-width"] | None = Field(
+        None, description="How the bin edges of those columns are chosen (default quantile); "
+        "needs 'bins'.")
     allow_outside: StrictBool = Field(
         False, description="Whether the data file may lie outside the project folder (the "
         "spec's folder, or its parent when that folder is named 'specs'); symlinks are "
@@ -413,6 +428,10 @@ class Combination:
 # --------------------------------------------------------------------------- the spec as data
 
 
+#: ``dataset`` keys left out of the normalised spec when not given.
+_OPTIONAL_DATASET_KEYS = ("missing_values", "use", "drop", "bins", "binning")
+
+
 def normalised_spec(spec: Spec, seed: int | None = None) -> dict[str, Any]:
     """The spec as plain JSON data, defaults filled in; ``seed`` overrides ``search.seed``.
     ``tier_names`` and ``bootstrap.budget`` appear only when the spec gives them (older
@@ -426,6 +445,9 @@ def normalised_spec(spec: Spec, seed: int | None = None) -> dict[str, Any]:
         data.pop("tier_names", None)
     if isinstance(data.get("bootstrap"), dict) and data["bootstrap"].get("budget") is None:
         data["bootstrap"].pop("budget", None)  # older bootstrap specs keep their hash
+    for key in _OPTIONAL_DATASET_KEYS:  # absent when not given: older specs keep their hash
+        if data["dataset"].get(key) is None:
+            data["dataset"].pop(key, None)
     if not data["dataset"].get("allow_outside"):  # absent when false: older specs keep their hash
         data["dataset"].pop("allow_outside", None)
     if seed is not None:

@@ -114,6 +114,33 @@ def _column_rules(spec: Spec, where: Where) -> list[Problem]:
     return problems
 
 
+def _default_binning_needs_bins(spec: Spec, where: Where) -> list[Problem]:
+    if spec.dataset.binning is None or spec.dataset.bins is not None:
+        return []
+    return [where.problem("dataset.binning", "'binning' needs 'bins' (the number of bins)",
+                          value=spec.dataset.binning)]
+
+
+def _default_bins_ignored(spec: Spec, where: Where) -> list[Problem]:
+    """``dataset.bins`` is a default for discrete scores only: a Gaussian or mixed score
+    keeps continuous columns continuous (a warning)."""
+    kind = registry.score(spec.score.name).data_kind
+    if spec.dataset.bins is None or kind == "discrete":
+        return []
+    return [where.problem("dataset.bins", f"'bins' under dataset is a default for discrete "
+                          f"scores only; score '{spec.score.name}' ignores it (give a column "
+                          "its own bins under dataset.columns to bin it)",
+                          severity="warning")]
+
+
+def _use_or_drop(spec: Spec, where: Where) -> list[Problem]:
+    """``dataset.use`` and ``dataset.drop`` select columns in opposite ways: one of them."""
+    if spec.dataset.use is None or spec.dataset.drop is None:
+        return []
+    return [where.problem("dataset.drop", "'use' and 'drop' are both given; list the columns "
+                          "to read in 'use', or those to leave out in 'drop', not both")]
+
+
 def _repeated_states(base: str, states: list[str], where: Where) -> list[Problem]:
     first: dict[str, int] = {}
     problems = []
@@ -344,6 +371,9 @@ RULES: tuple[tuple[frozenset[str], Rule], ...] = (
     (frozenset({"fit", "evaluation"}), _holdout_needs_pseudo_count),
     (frozenset({"score", "evaluation"}), _holdout_not_under_mixed),
     (frozenset({"dataset.columns"}), _column_rules),
+    (frozenset({"dataset.use", "dataset.drop"}), _use_or_drop),
+    (frozenset({"dataset.bins", "dataset.binning"}), _default_binning_needs_bins),
+    (frozenset({"dataset.bins", "score"}), _default_bins_ignored),
     (frozenset({"score"}), _ignored_score_keys),
     (frozenset({"search.method", "search.restarts"}), _ignored_search_keys),
     (frozenset({"tiers", "tier_names"}), _tier_names),
