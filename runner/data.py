@@ -68,8 +68,11 @@ PARQUET_SUFFIXES: tuple[str, ...] = (".parquet", ".pq")
 #: Values (after stripping whitespace) read as "missing".
 MISSING_SPELLINGS: tuple[str, ...] = ("", "NA", "N/A", "NaN", "nan", "null", "NULL", "None")
 
-#: ``missing`` policies: stop with an error, or drop every row with a missing value.
-MISSING_POLICIES: tuple[str, ...] = ("error", "drop-rows")
+#: ``missing`` policies: stop with an error, drop every row with a missing value, or keep
+#: every row and mark each missing cell (``available-case``: a discrete column's code equal
+#: to its number of states; a continuous column's value NaN), so each family is scored on
+#: the rows where its variables are present (:mod:`runner.scores.available`).
+MISSING_POLICIES: tuple[str, ...] = ("error", "drop-rows", "available-case")
 
 #: Most states one column can have (codes are at most 16-bit).
 MAX_ENCODABLE_STATES = 1 << 16
@@ -99,6 +102,10 @@ class Dataset:
     tuples: every column discrete). ``values`` is None unless a column is continuous;
     then it is a read-only float64 array of shape (n_vars, n_rows) holding the numbers of
     the continuous columns (rows of discrete columns are NaN).
+
+    ``incomplete`` is True when the data was read under ``missing: available-case``: then
+    a code equal to the column's number of states (``arities[i]``) marks a missing cell
+    of a discrete column, and NaN one of a continuous column (:meth:`present`).
     """
 
     path: str
@@ -111,6 +118,7 @@ class Dataset:
     kinds: tuple[str, ...] = ()
     kind_reasons: tuple[str, ...] = ()
     values: np.ndarray | None = None
+    incomplete: bool = False
 
     def kind(self, i: int) -> str:
         """Kind of column ``i``: "discrete" or "continuous"."""
@@ -123,6 +131,15 @@ class Dataset:
     def rows(self) -> int:
         """Number of data rows (after any dropped for missing values)."""
         return int(self.codes.shape[1])
+
+    def present(self, i: int) -> np.ndarray:
+        """Mask of the rows where column ``i`` has a value (all True unless
+        ``incomplete``)."""
+        if not self.incomplete:
+            return np.ones(self.rows, dtype=bool)
+        if self.kind(i) == "continuous" and self.values is not None:
+            return ~np.isnan(self.values[i])
+        return self.codes[i] != len(self.states[i])
 
     @property
     def arities(self) -> np.ndarray:
@@ -161,7 +178,8 @@ class Dataset:
             values = np.ascontiguousarray(self.values[:, positions])
             values.flags.writeable = False
         return Dataset(self.path, self.sha256, self.names, self.states, codes,
-                       self.dropped_rows, self.warnings, self.kinds, self.kind_reasons, values)
+                       self.dropped_rows, self.warnings, self.kinds, self.kind_reasons, values,
+                       self.incomplete)
 
 
 # --------------------------------------------------------------------------- public functions
@@ -253,7 +271,7 @@ def load_dataset(
     warnings = tuple(p for p in problems if p.severity != "error") + encoded.warnings
     return Dataset(str(path), sha, tuple(names), encoded.states, encoded.codes,
                    encoded.dropped_rows, warnings, encoded.kinds, encoded.kind_reasons,
-                   encoded.values)
+                   encoded.values, missing == "available-case")
 
 
 def encode_frame(
@@ -294,7 +312,7 @@ def encode_frame(
         raise InputError(problems)
     return Dataset(path, sha256, tuple(names), encoded.states, encoded.codes,
                    encoded.dropped_rows, encoded.warnings, encoded.kinds, encoded.kind_reasons,
-                   encoded.values)
+                   encoded.values, missing == "available-case")
 
 
 # --------------------------------------------------------------------------- reading the file
@@ -1162,6 +1180,7 @@ def _encode_columns(
     spellings = MISSING_SPELLINGS if missing_values is None else tuple(missing_values)
     labelled = _parse_columns(names, columns, declared or {}, spellings, report)
     keep = _rows_to_keep(names, labelled, n_rows, missing, report)
+    reserve = missing == "available-case"
     parsed: list[_Column | None] = list(labelled)
     del labelled
     dropped = int(n_rows - keep.sum())
@@ -1175,12 +1194,14 @@ def _encode_columns(
         column = _encode_column(name, col, (kinds or {}).get(name), max_states, kept_rows,
                                 report)
         del col
+        if column is not None and reserve and column.lut is not None:
+            column.lut = np.where(column.lut == _MISSING_CODE, len(column.states), column.lut)
         if column is not None:
             encoded.append(column)
     if report.failed():
         return _Encoded((), np.zeros((len(names), 0), np.uint8), dropped,
                         tuple(report.warnings), report.problems)
-    return _assemble(encoded, dropped, report)
+    return _assemble(encoded, dropped, report, reserve)
 
 
 def _parse_columns(names: Sequence[str], columns: list[_Factorised],
@@ -1206,7 +1227,8 @@ def _parse_columns(names: Sequence[str], columns: list[_Factorised],
 def _rows_to_keep(names: Sequence[str], parsed: Sequence[_Column], n_rows: int,
                   missing: str, report: _Report) -> np.ndarray:
     """The rows to encode (a mask): under ``missing: error`` all of them, with a problem
-    per column that has missing values; under ``drop-rows`` the rows without any."""
+    per column that has missing values; under ``drop-rows`` the rows without any; under
+    ``available-case`` all of them (a warning says how many rows have a gap)."""
     keep = np.ones(n_rows, dtype=bool)
     for name, col in zip(names, parsed, strict=True):
         mask = _missing(col)[col.raw_codes]
@@ -1214,6 +1236,15 @@ def _rows_to_keep(names: Sequence[str], parsed: Sequence[_Column], n_rows: int,
             _report_missing(name, mask, report)
         else:
             keep &= ~mask
+    if missing == "available-case":
+        gaps = int(n_rows - keep.sum())
+        if gaps:
+            report.warnings.append(Problem(
+                report.file, f"{gaps:,} of {n_rows:,} data rows have a missing value; kept "
+                f"({report.key_prefix}.missing: available-case: each family is scored on the "
+                "rows where its columns are present, assuming values are missing completely "
+                "at random)", key=f"{report.key_prefix}.missing", severity="warning"))
+        keep = np.ones(n_rows, dtype=bool)
     return keep
 
 
@@ -1362,10 +1393,12 @@ def _state_lut(col: _Column, states: tuple[str, ...]) -> np.ndarray:
                      for label in col.labels], dtype=np.int64)
 
 
-def _assemble(encoded: Sequence[_EncodedColumn], dropped: int, report: _Report) -> _Encoded:
+def _assemble(encoded: Sequence[_EncodedColumn], dropped: int, report: _Report,
+              reserve: bool = False) -> _Encoded:
     """The code matrix (``uint8``, or ``uint16`` above 256 states; read-only) and, when a
-    column is continuous, the values matrix (NaN rows for discrete columns)."""
-    widest = max(len(c.states) for c in encoded)
+    column is continuous, the values matrix (NaN rows for discrete columns). With
+    ``reserve`` (available-case) a column's number of states is a code too (missing)."""
+    widest = max(len(c.states) for c in encoded) + (1 if reserve else 0)
     dtype = np.uint8 if widest <= 256 else np.uint16
     matrix = np.empty((len(encoded), encoded[0].rows), dtype=dtype)
     for i, column in enumerate(encoded):

@@ -49,6 +49,7 @@ from typing import Any
 import numpy as np
 
 from runner.data import Dataset
+from runner.scores.available import present_rows
 from runner.scores.conditional_gaussian import ConfigurationFit, MixedData, continuous_fits
 from runner.scores.counts import COMPACT_ABOVE, configuration_codes
 from runner.scores.elementary import ln, ln_scalar
@@ -119,7 +120,12 @@ def _codes_of(codes: np.ndarray, arities: np.ndarray, parents: Sequence[int]) ->
 
 def discrete_family(codes: np.ndarray, arities: np.ndarray, child: int,
                     parents: Sequence[int]) -> DiscreteFamily:
-    """The counts of one family over the rows of ``codes``."""
+    """The counts of one family over the rows of ``codes`` where the child and every
+    parent are present (all of them unless the data keeps missing cells, coded as the
+    column's arity, under ``dataset.missing: available-case``)."""
+    present = present_rows(codes, arities, [child, *parents])
+    if not present.all():
+        codes = codes[:, present]
     r = int(arities[child])
     possible = int(np.prod([int(arities[p]) for p in parents], dtype=object)) if parents else 1
     if codes.shape[1] == 0:

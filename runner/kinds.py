@@ -36,6 +36,7 @@ from runner.data import Dataset
 from runner.errors import InputError, Problem
 from runner.registry import BGeParams, Params
 from runner.scores import FamilyScorer, build_cg_scorer, build_gaussian_scorer, build_scorer
+from runner.scores.available import AvailableCaseScorer
 from runner.scores.gaussian import bge_prior
 
 #: Smallest eigenvalue of the correlation matrix below which it counts as singular.
@@ -120,7 +121,22 @@ def make_scorer(score: Mapping[str, Any], dataset: Dataset) -> FamilyScorer:
     """The cached family scorer of the spec's ``score`` block on a resolved data set: the
     registry entry's builder, with the entry's own keys."""
     entry = registry.score(str(score.get("name", "bic")))
+    if getattr(dataset, "incomplete", False):
+        return available_case_scorer(entry.name, dataset)
     return entry.builder.load()(entry.name, entry.params.pick(score), dataset)
+
+
+def available_case_scorer(name: str, dataset: Dataset) -> FamilyScorer:
+    """The available-case scorer (``dataset.missing: available-case``): each family on the
+    rows where its columns are present, by the penalised node-average likelihood
+    (:mod:`runner.scores.available`); InputError for a score without that form (a
+    rescore under another score)."""
+    if name not in registry.AVAILABLE_CASE_SCORES:
+        raise InputError(Problem(
+            dataset.path, f"the data was read with dataset.missing: available-case, which "
+            f"works with the scores {', '.join(registry.AVAILABLE_CASE_SCORES)} only, not "
+            f"score.name '{name}'", key="score.name", value=name))
+    return AvailableCaseScorer(name, dataset.codes, dataset.arities)
 
 
 def discrete_scorer(name: str, params: Params, dataset: Dataset) -> FamilyScorer:
@@ -233,14 +249,16 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
                 spec_file, f"the stored bins of column {name!r} ({stored_from}) were made "
                 f"with other settings; its edges are computed from this data", key=key,
                 severity="warning"))
-        binned = discretise(x, int(bins), method,
+        present = ~np.isnan(x) if dataset.incomplete else np.ones(x.shape, dtype=bool)
+        binned = discretise(x[present], int(bins), method,
                             earlier["edges"] if reuse and earlier is not None else None)
         if len(binned.labels) < bins:
             warnings.append(Problem(
                 spec_file, f"column {name!r}: {len(binned.labels)} of the {bins} bins asked "
                 "for are left, because bin edges coincide (tied values)", key=key,
                 severity="warning"))
-        codes[i] = binned.codes
+        codes[i] = len(binned.labels)  # the missing cells' code (available-case)
+        codes[i, present] = binned.codes
         states[i] = binned.labels
         fingerprint[name] = list(binned.cuts)
         record[name] = {
@@ -254,7 +272,7 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
         raise InputError(problems)
     if dataset.values is None:
         return Resolved(dataset, record, None, warnings)
-    widest = max((len(s) for s in states), default=1)
+    widest = max((len(s) for s in states), default=1) + (1 if dataset.incomplete else 0)
     matrix = np.ascontiguousarray(codes, dtype=np.uint8 if widest <= 256 else np.uint16)
     matrix.flags.writeable = False
     kinds = tuple("continuous" if i in kept else "discrete" for i in range(len(dataset.names)))
@@ -266,7 +284,8 @@ def _for_discrete(dataset: Dataset, columns_spec: Mapping[str, Mapping[str, Any]
         values[kept] = dataset.values[kept]
         values.flags.writeable = False
     ready = Dataset(dataset.path, dataset.sha256, dataset.names, tuple(states), matrix,
-                    dataset.dropped_rows, dataset.warnings, kinds, reasons, values)
+                    dataset.dropped_rows, dataset.warnings, kinds, reasons, values,
+                    dataset.incomplete)
     text = json.dumps(fingerprint, sort_keys=True, separators=(",", ":")) if fingerprint else None
     return Resolved(ready, record, text, warnings)
 

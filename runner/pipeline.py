@@ -38,6 +38,7 @@ from runner.kinds import (
 from runner.progress import SILENT, Progress, Reporter
 from runner.registry import RestartParams
 from runner.scores import FamilyScorer
+from runner.scores.available import AvailableCaseScorer
 from runner.scores.gaussian import GaussianScorer, GaussianStatistics
 from runner.search import Budget, MoveEngine, RunSummary, SearchOutcome, local_search, with_restarts
 from runner.search.budget import BUDGET_REASONS
@@ -556,9 +557,13 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
         "value": total,
         "per_row": total / part.dataset.rows,
         "families": families,
-        "score_equivalent": registry.score(spec.score.name).score_equivalent,
+        "score_equivalent": (registry.score(spec.score.name).score_equivalent
+                             and not isinstance(scorer, AvailableCaseScorer)),
     }
     score_block.update(score_record(score_spec, len(names)))
+    if isinstance(scorer, AvailableCaseScorer):
+        score_block["available_rows"] = {
+            names[c]: scorer.available_rows(c, ps) for c, ps in enumerate(outcome.parent_sets)}
     pseudo_count = spec.fit.pseudo_count if spec.fit is not None else DEFAULT_PSEUDO_COUNT
     gaussian = is_gaussian(score_spec["name"])
     model, fitted = fit_model(part.dataset, gaussian, outcome.parent_sets, pseudo_count,

@@ -113,6 +113,9 @@ class Score(Fixed):
     score_equivalent: bool
     ess: float | None = None
     bge_prior: BgePrior | None = None
+    #: Under ``dataset.missing: available-case``: per child, the rows its family (the
+    #: child and its parents) was counted on (every one of them present).
+    available_rows: dict[str, int] | None = None
 
 
 # --------------------------------------------------------------------------- search

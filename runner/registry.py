@@ -369,6 +369,12 @@ METHOD_NAMES: tuple[str, ...] = tuple(_METHODS)
 SCORE_EQUIVALENT_SCORES: frozenset[str] = frozenset(
     entry.name for entry in SCORES if entry.score_equivalent)
 
+#: Scores a spec may use under ``dataset.missing: available-case``, each with its penalty
+#: per free parameter as in the complete-data form (ln N / 2 for BIC, 1 for AIC, none for
+#: loglik): the node-average likelihood form of
+#: :mod:`runner.scores.available` exists for the penalised log-likelihood scores only.
+AVAILABLE_CASE_SCORES: tuple[str, ...] = ("loglik", "aic", "bic")
+
 
 def score(name: str) -> ScoreEntry:
     """The score called ``name`` (ValueError naming the known ones)."""

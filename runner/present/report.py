@@ -140,6 +140,25 @@ def network_context(record: Mapping[str, Any], show_forbidden: bool) -> dict[str
     return {"caption": caption, "svg": Markup(svg), "confidence": bool(edge_confidence(record))}
 
 
+def available_case_line(record: Mapping[str, Any]) -> str | None:
+    """The caution line of a run under ``dataset.missing: available-case`` (None
+    otherwise): the rows each family kept and the assumption behind them."""
+    spec = record.get("spec") or {}
+    if (spec.get("dataset") or {}).get("missing") != "available-case":
+        return None
+    rows = (record.get("score") or {}).get("available_rows") or {}
+    total = (record.get("data") or {}).get("rows")
+    counts = sorted(rows.values())
+    kept = (f" Families were counted on {counts[0]:,} to {counts[-1]:,} of the "
+            f"{total:,} rows." if counts and total is not None else "")
+    return ("This run kept rows with missing values (dataset.missing: available-case): "
+            "each family is scored on the rows where its columns are all present, by the "
+            "penalised node-average likelihood (Balov 2013)." + kept + " This assumes the "
+            "values are missing completely at random; when whether a value is missing "
+            "depends on the values themselves, the kept rows are a biased sample and the "
+            "graph and the tables can be wrong.")
+
+
 def held_out_context(record: Mapping[str, Any]) -> dict[str, Any] | None:
     ev = record.get("evaluation")
     if not isinstance(ev, Mapping) or "log_likelihood" not in ev:
@@ -343,6 +362,7 @@ def render_report(record: Mapping[str, Any], folder: Path | None,
     return page.render(
         title=f"dagmill report: {record['spec_name']}, run {record['run_id']}",
         record=record, caution=record.get("caution") or CAUTION, version=__version__,
+        available_case=available_case_line(record),
         palette={"paper": PAPER, "ink": INK, "muted": MUTED},
         inputs=inputs_rows(record),
         diff=None if other is None else diff_context(record, other),

@@ -126,8 +126,11 @@ class DatasetSpec(_Section):
     sha256: Annotated[StrictStr, Field(pattern=SHA256_PATTERN)] | None = Field(
         None, description="Optional pin: sha256 of the data file; a different file stops the "
         "run.")
-    missing: Literal["error", "drop-rows"] = Field(
-        "error", description="What an empty cell does: stop with an error, or drop its row.")
+    missing: Literal["error", "drop-rows", "available-case"] = Field(
+        "error", description="What an empty cell does: stop with an error, drop its row, or "
+        "keep the row and score each family on the rows where its columns are present "
+        "(available-case; scores loglik, aic, bic; assumes values missing completely at "
+        "random).")
     max_states: Annotated[StrictInt, Field(ge=2)] = Field(
         64, description="Most distinct values a discrete column may have; an undeclared "
         "numeric column with more is continuous.")
@@ -315,6 +318,10 @@ class Spec(_Section):
         if search is not None and (not isinstance(search, dict) or "method" in search):
             return data
         name = score.get("name", "bic") if isinstance(score, dict) else "bic"
+        dataset = data.get("dataset")
+        if isinstance(dataset, dict) and dataset.get("missing") == "available-case":
+            # families counted on different rows: no score is score-equivalent then
+            return {**data, "search": {**(search or {}), "method": "hill-climb"}}
         return {**data, "search": {**(search or {}), "method": default_method(str(name))}}
 
     _source_path: Path | None = PrivateAttr(default=None)

@@ -91,6 +91,36 @@ def _holdout_not_under_mixed(spec: Spec, where: Where) -> list[Problem]:
                           "a discrete score (bin the continuous columns) or a Gaussian one")]
 
 
+def _available_case_scores(spec: Spec, where: Where) -> list[Problem]:
+    """``missing: available-case`` scores each family by its node-average likelihood
+    (runner.scores.available), defined for the penalised log-likelihood scores only; the
+    held-out fit needs complete rows."""
+    if spec.dataset.missing != "available-case":
+        return []
+    problems = []
+    if spec.score.name not in registry.AVAILABLE_CASE_SCORES:
+        problems.append(where.problem(
+            "score.name", f"dataset.missing: available-case works with the scores "
+            f"{', '.join(registry.AVAILABLE_CASE_SCORES)} only, not score.name "
+            f"'{spec.score.name}'; use one of those, or set dataset.missing: drop-rows",
+            value=spec.score.name))
+    method = (registry.method(spec.search.method)
+              if spec.search.method in registry.METHOD_NAMES else None)
+    if method is not None and method.needs_score_equivalent:
+        problems.append(where.problem(
+            "search.method", f"search method '{spec.search.method}' needs a score-equivalent "
+            "score, and under dataset.missing: available-case no score is one (a family is "
+            "counted on the rows where its own columns are present, so equivalent graphs "
+            "can score differently); use a DAG search such as 'hill-climb' or 'tabu'",
+            value=spec.search.method))
+    if spec.evaluation is not None:
+        problems.append(where.problem(
+            "evaluation", "held-out evaluation needs complete rows and is not available "
+            "under dataset.missing: available-case; drop 'evaluation', or set "
+            "dataset.missing: drop-rows"))
+    return problems
+
+
 def _column_rules(spec: Spec, where: Where) -> list[Problem]:
     problems: list[Problem] = []
     for name, column in spec.dataset.columns.items():
@@ -370,6 +400,8 @@ RULES: tuple[tuple[frozenset[str], Rule], ...] = (
     (frozenset(), _consensus_needs_bootstrap),
     (frozenset({"fit", "evaluation"}), _holdout_needs_pseudo_count),
     (frozenset({"score", "evaluation"}), _holdout_not_under_mixed),
+    (frozenset({"dataset.missing", "score", "evaluation", "search.method"}),
+     _available_case_scores),
     (frozenset({"dataset.columns"}), _column_rules),
     (frozenset({"dataset.use", "dataset.drop"}), _use_or_drop),
     (frozenset({"dataset.bins", "dataset.binning"}), _default_binning_needs_bins),
