@@ -349,6 +349,7 @@ print(json.dumps(out))
 """
 
 
+@pytest.mark.slow
 def test_values_do_not_depend_on_the_blas_kernel_or_its_threads() -> None:
     """The same scores, fitted parameters and held-out totals (every bit) under OpenBLAS's
     default kernel for this CPU, the oldest x86-64 one (OPENBLAS_CORETYPE=Prescott), and

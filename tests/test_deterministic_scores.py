@@ -352,6 +352,7 @@ def run_child(data: Path, families: list[Family], extra: dict[str, str]) -> dict
     return json.loads(done.stdout)
 
 
+@pytest.mark.slow
 def test_same_bits_under_other_cpu_code_paths(alarm: Network, tmp_path: Path) -> None:
     """Every discrete family score of 200 ALARM families (10,000 rows), and the BIC
     hill-climbing result, are the same bits in a process on the default code paths and

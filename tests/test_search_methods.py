@@ -126,6 +126,7 @@ def test_budget_stops_are_named_and_not_converged() -> None:
     assert out.stop_reason == "max_seconds" and not out.converged
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("method", [*LOCAL_METHODS, "order", "exact"])
 def test_each_method_is_deterministic_across_processes(tmp_path: Path, method: str,
                                                        cli: CliCall,
