@@ -224,6 +224,7 @@ def main(argv: list[str] | None = None) -> int:
     quality.add_arguments(parser)
     budget.add_arguments(parser)
     args = parser.parse_args(argv)
+    Path(args.out).mkdir(parents=True, exist_ok=True)  # a fresh --out folder is made
     if args.quality:
         return quality.run(args)
     if args.budget:
