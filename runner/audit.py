@@ -24,7 +24,6 @@ their hashes elsewhere (version control) still names them.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -41,6 +40,7 @@ from runner.store import (
     RUN_ID,
     SIGNATURE_KEY,
     baseline_path,
+    raw_document,
     read_baseline,
     read_check_outcome,
     read_run,
@@ -95,14 +95,6 @@ def _stamp(doc: dict[str, Any]) -> str:
     return str(doc.get("run_id", "")).split("-", 1)[0]
 
 
-def _raw(path: Path) -> dict[str, Any] | None:
-    try:
-        doc = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
-        return None
-    return doc if isinstance(doc, dict) else None
-
-
 def _run_folders(spec_folder: Path) -> list[Path]:
     runs = spec_folder / "runs"
     if not runs.is_dir():
@@ -119,7 +111,7 @@ def _check_runs(audit: SpecAudit, folders: list[Path],
         if not RUN_ID.match(folder.name):
             audit.problems.append(Finding(str(folder), "not a run folder name (a run id): "
                                           "renamed or added by hand"))
-        doc = _raw(path)
+        doc = raw_document(path)
         if doc is None:
             audit.problems.append(Finding(str(path), "missing or not a JSON object"))
             continue

@@ -15,7 +15,6 @@ Everything here returns values (data classes); :mod:`runner.present` renders the
 from __future__ import annotations
 
 import hashlib
-import json
 import os
 from collections.abc import Sequence
 from dataclasses import asdict, dataclass, field
@@ -39,6 +38,7 @@ from runner.store import (
     RECORD_HASH_KEY,
     current_variation,
     list_runs,
+    raw_document,
     read_baseline,
     read_check_outcome,
     read_run,
@@ -142,11 +142,8 @@ class LatestRun:
 
 def _raw_link(folder: Path) -> tuple[str | None, str | None]:
     """A run's ``(record_sha256, previous_record_sha256)`` as stored (not checked)."""
-    try:
-        doc = json.loads((folder / "run.json").read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
-        return None, None
-    if not isinstance(doc, dict):
+    doc = raw_document(folder / "run.json")
+    if doc is None:
         return None, None
     own, previous = doc.get(RECORD_HASH_KEY), doc.get(PREVIOUS_KEY)
     return (own if isinstance(own, str) else None,

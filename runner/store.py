@@ -251,6 +251,30 @@ def _chain_lock(runs: Path) -> Iterator[None]:
         os.close(fd)  # closing the descriptor releases the lock
 
 
+def raw_document(path: Path) -> dict[str, Any] | None:
+    """A JSON object file parsed but not checked (None when it is missing, unreadable or
+    not an object): for the chain and the audit, which must see edited files too."""
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return None
+    return doc if isinstance(doc, dict) else None
+
+
+def _read_document(path: Path, what: str, missing: str | None = None) -> Any:
+    """A stored document's parsed JSON, before its model checks it: None when the file
+    does not exist and ``missing`` is None, else InputError with ``missing``; an
+    unreadable file is InputError naming it."""
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        if missing is None:
+            return None
+        raise InputError(Problem(str(path), missing)) from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(Problem(str(path), f"{what} is unreadable: {exc}")) from None
+
+
 def _raw_records(runs: Path) -> list[tuple[Path, dict[str, Any]]]:
     """Every run folder in ``runs/`` with its parsed ``run.json`` (unchecked), by run id;
     folders whose record cannot be parsed are left out."""
@@ -258,11 +282,8 @@ def _raw_records(runs: Path) -> list[tuple[Path, dict[str, Any]]]:
         return []
     out = []
     for folder in sorted(p for p in runs.iterdir() if p.is_dir() and RUN_ID.match(p.name)):
-        try:
-            doc = json.loads((folder / "run.json").read_text(encoding="utf-8"))
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
-            continue
-        if isinstance(doc, dict):
+        doc = raw_document(folder / "run.json")
+        if doc is not None:
             out.append((folder, doc))
     return out
 
@@ -359,12 +380,7 @@ def read_run(folder: Path) -> dict[str, Any]:
     model file's, the whole record's and the trace's (a hand edit is refused). Records
     from before a hash existed are read without that check."""
     path = folder / "run.json"
-    try:
-        record = json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(Problem(str(path), "run record is missing")) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(Problem(str(path), f"run record is unreadable: {exc}")) from None
+    record = _read_document(path, "run record", missing="run record is missing")
     check_record(record, str(path))
     if graph_sha256(record["edges"]) != record["graph_sha256"]:
         raise InputError(Problem(
@@ -528,12 +544,9 @@ def read_baseline(root: Path, spec_name: str) -> dict[str, Any] | None:
     Older baselines are checked against their graph hash only. Raises InputError naming
     the file for anything that does not hold."""
     path = baseline_path(root, spec_name)
-    try:
-        doc = json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
+    doc = _read_document(path, "baseline")
+    if doc is None:
         return None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(Problem(str(path), f"baseline is unreadable: {exc}")) from None
     try:
         check_baseline(doc, str(path))
     except InputError as exc:
@@ -653,31 +666,20 @@ def read_check_outcome(folder: Path) -> dict[str, Any] | None:
     refused (InputError naming the file) when it does not fit, was edited, or belongs to
     another run."""
     path = folder / CHECK_FILE
-    try:
-        doc = json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
+    doc = _read_document(path, "check outcome")
+    if doc is None:
         return None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(Problem(str(path), f"check outcome is unreadable: {exc}")) from None
     check_outcome(doc, str(path))
     if check_sha256(doc) != doc[CHECK_HASH_KEY]:
         raise InputError(Problem(str(path), "check outcome does not match its check_sha256: "
                                  "it was edited by hand; restore it from version control",
                                  key=CHECK_HASH_KEY))
-    raw = _raw_record(folder)
+    raw = raw_document(folder / "run.json")
     if raw is None or doc["run_record_sha256"] != raw.get(RECORD_HASH_KEY):
         raise InputError(Problem(str(path), "check outcome belongs to another run (its "
                                  "run_record_sha256 differs from run.json's); restore it "
                                  "from version control", key="run_record_sha256"))
     return doc
-
-
-def _raw_record(folder: Path) -> dict[str, Any] | None:
-    try:
-        doc = json.loads((folder / "run.json").read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
-        return None
-    return doc if isinstance(doc, dict) else None
 
 
 # --------------------------------------------------------------------------- variation summaries
@@ -719,10 +721,7 @@ def write_variation(root: Path, doc: dict[str, Any], signer: Signer | None = Non
 def read_variation(path: Path) -> dict[str, Any]:
     """A variation summary, checked against its model and its seal (InputError naming
     the file when it does not fit or was edited)."""
-    try:
-        doc = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(Problem(str(path), f"variation summary is unreadable: {exc}")) from None
+    doc = _read_document(path, "variation summary", missing="variation summary is missing")
     check_variation(doc, str(path))
     if variation_sha256(doc) != doc[VARIATION_HASH_KEY]:
         raise InputError(Problem(str(path), "variation summary does not match its "
