@@ -224,6 +224,10 @@ class ScoreEntry:
     reference: str
     family: Target[Callable[..., float]] | None = None
     record: Target[ScoreRecorder] | None = None
+    #: whether the score difference of two graphs is a log Bayes factor ("exact"), about
+    #: one ("approximate": BIC, Schwarz 1978), or neither (None: the maximised
+    #: log-likelihood, AIC); the drift gate judges structural drift only on that scale
+    bayes_factor: Literal["exact", "approximate"] | None = None
 
 
 @dataclass(frozen=True)
@@ -279,18 +283,21 @@ SCORES: tuple[ScoreEntry, ...] = (
     ScoreEntry(
         "bic", NoParams, True, "discrete", _DISCRETE,
         "loglik minus (ln N / 2) per free parameter", "Schwarz 1978",
-        family=Target("runner.scores.likelihood:bic_family")),
+        family=Target("runner.scores.likelihood:bic_family"),
+        bayes_factor="approximate"),
     ScoreEntry(
         "bdeu", BDeuParams, True, "discrete", _DISCRETE,
         "Bayesian Dirichlet marginal likelihood, hyperparameters ess/(q r)",
         "Buntine 1991; Heckerman, Geiger & Chickering 1995",
         family=Target("runner.scores.dirichlet:bdeu_family"),
-        record=Target("runner.kinds:params_record")),
+        record=Target("runner.kinds:params_record"),
+        bayes_factor="exact"),
     ScoreEntry(
         "k2", NoParams, False, "discrete", _DISCRETE,
         "Dirichlet marginal likelihood with every hyperparameter 1; equivalent DAGs can "
         "score differently", "Cooper & Herskovits 1992",
-        family=Target("runner.scores.dirichlet:k2_family")),
+        family=Target("runner.scores.dirichlet:k2_family"),
+        bayes_factor="exact"),
     ScoreEntry(
         "gaussian-loglik", NoParams, True, "continuous", _GAUSSIAN,
         "maximised log-likelihood of the least-squares fit of each child on its parents, "
@@ -298,19 +305,22 @@ SCORES: tuple[ScoreEntry, ...] = (
     ScoreEntry(
         "gaussian-bic", NoParams, True, "continuous", _GAUSSIAN,
         "gaussian-loglik minus (ln N / 2) per parameter (intercept, coefficients, variance)",
-        "Schwarz 1978"),
+        "Schwarz 1978",
+        bayes_factor="approximate"),
     ScoreEntry(
         "bge", BGeParams, True, "continuous", _GAUSSIAN,
         "marginal likelihood under a normal-Wishart prior (prior mean: the column means)",
         "Geiger & Heckerman 1994; Kuipers, Moffa & Heckerman 2014",
-        record=Target("runner.kinds:bge_record")),
+        record=Target("runner.kinds:bge_record"),
+        bayes_factor="exact"),
     ScoreEntry(
         "cg-bic", NoParams, False, "mixed", _MIXED,
         "conditional linear Gaussian BIC for tables mixing discrete and continuous columns: "
         "a continuous child regressed on its continuous parents per configuration of its "
         "discrete parents, a discrete child the discrete BIC; discrete children never get "
         "continuous parents; bic without continuous columns, gaussian-bic without discrete "
-        "ones", "Lauritzen & Wermuth 1989; Bottcher 2001; Schwarz 1978"),
+        "ones", "Lauritzen & Wermuth 1989; Bottcher 2001; Schwarz 1978",
+        bayes_factor="approximate"),
 )
 
 METHODS: tuple[MethodEntry, ...] = (

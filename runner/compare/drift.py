@@ -41,20 +41,13 @@ from typing import Any
 
 import numpy as np
 
+from runner import registry
 from runner.errors import InputError
 from runner.evaluation import gaussian_log_density_rows
 from runner.fit import DiscreteFamily, log_likelihood_rows
 from runner.graph import parents_from_edges
 from runner.scores.fixed_order import sum_floats
 from runner.scores.gaussian import LinearGaussianFamily
-
-#: Scores whose difference between two graphs is a log Bayes factor ("exact") or
-#: approximately one ("approximate": BIC, Schwarz 1978). The others (the maximised
-#: log-likelihood, AIC) are not on that scale: structural drift is not judged under them.
-BAYES_FACTOR_SCALE: dict[str, str] = {
-    "bdeu": "exact", "k2": "exact", "bge": "exact",
-    "bic": "approximate", "gaussian-bic": "approximate", "cg-bic": "approximate",
-}
 
 #: The fit-drift interval: its level, the number of bootstrap resamples and their seed.
 INTERVAL_LEVEL = 0.95
@@ -98,7 +91,7 @@ class DriftMeasures:
     it cannot be computed)."""
 
     score: str
-    scale: str | None  # BAYES_FACTOR_SCALE's entry, None when not on that scale
+    scale: str | None  # the score's registry bayes_factor: None when not on that scale
     rows: int
     baseline_graph: float
     new_graph: float
@@ -318,7 +311,7 @@ def same_rows(record: Mapping[str, Any], baseline_edges: Sequence[Sequence[str]]
         note = "the fit of a conditional Gaussian model (cg-bic) on new rows is not measured yet"
     else:
         fit, note = fit_drift(model, inputs.learning, held_out)
-    return DriftMeasures(score, BAYES_FACTOR_SCALE.get(score), inputs.learning.rows,
+    return DriftMeasures(score, registry.score(score).bayes_factor, inputs.learning.rows,
                          base_total, new_total, fit, note)
 
 
