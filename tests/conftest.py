@@ -496,3 +496,27 @@ def write_numeric_case(folder: Path, rows: int = 600, seed: int = 9,
     path = folder / "data.csv"
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     return path
+
+
+# --------------------------------------------------------------------------- small kiln projects
+
+
+def kiln_spec_text(name: str, extra: str = "") -> str:
+    """A spec of the kiln-line tiers under BDeu (search seed 2) reading
+    ``../datasets/kiln.csv``, with ``extra`` YAML lines at the end."""
+    return (f"name: {name}\ndataset:\n  path: ../datasets/kiln.csv\ntiers:\n"
+            "  - [supplier, clay_lot, moisture, glaze_batch]\n"
+            "  - [press_force, kiln_peak, dwell, cooling]\n"
+            "  - [crack, warp, shade]\n  - [grade]\n"
+            f"{extra}score: {{name: bdeu}}\nsearch:\n  seed: 2\n")
+
+
+def write_kiln_data(folder: Path, rows: int) -> Path:
+    """``folder/datasets/kiln.csv``: the first ``rows`` rows of the shipped kiln-line data
+    (and an empty ``folder/specs``)."""
+    (folder / "specs").mkdir(parents=True, exist_ok=True)
+    (folder / "datasets").mkdir(exist_ok=True)
+    lines = (ROOT / "datasets" / "kiln-line.csv").read_text(encoding="utf-8").splitlines()
+    path = folder / "datasets" / "kiln.csv"
+    path.write_text("\n".join(lines[: rows + 1]) + "\n")
+    return path

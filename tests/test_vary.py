@@ -12,7 +12,7 @@ from typing import Any
 
 import networkx as nx
 import pytest
-from conftest import ROOT, CliCall, CliResult, ProcessCall
+from conftest import CliCall, CliResult, ProcessCall, kiln_spec_text, write_kiln_data
 
 from runner.store import VOLATILE_KEYS, list_variations, read_variation
 
@@ -20,21 +20,7 @@ ROWS = 2000
 NAME = "kiln-vary"
 FAST = ("--quiet", "--workers", "1")
 
-SPEC = """\
-name: kiln-vary
-dataset:
-  path: ../datasets/kiln.csv
-tiers:
-  - [supplier, clay_lot, moisture, glaze_batch]
-  - [press_force, kiln_peak, dwell, cooling]
-  - [crack, warp, shade]
-  - [grade]
-required:
-  - [kiln_peak, crack]
-score: {name: bdeu}
-search:
-  seed: 2
-"""
+SPEC = kiln_spec_text(NAME, extra="required:\n  - [kiln_peak, crack]\n")
 VARY = """\
 vary:
   score.ess: [1, 10, 50]
@@ -46,10 +32,7 @@ COMBINATIONS = [(cap, ess) for cap in (1, 3) for ess in (1, 10, 50)]
 
 
 def _project(folder: Path, spec: str = SPEC + VARY, file: str = "vary.yaml") -> Path:
-    (folder / "specs").mkdir(parents=True, exist_ok=True)
-    (folder / "datasets").mkdir(exist_ok=True)
-    lines = (ROOT / "datasets" / "kiln-line.csv").read_text(encoding="utf-8").splitlines()
-    (folder / "datasets" / "kiln.csv").write_text("\n".join(lines[: ROWS + 1]) + "\n")
+    write_kiln_data(folder, ROWS)
     (folder / "specs" / file).write_text(spec, encoding="utf-8")
     return folder
 

@@ -12,7 +12,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from conftest import ROOT, CliCall
+from conftest import CliCall, kiln_spec_text, write_kiln_data
 
 from runner.present.report import render_variation_report
 from runner.store import list_variations, read_run, read_variation
@@ -20,19 +20,7 @@ from runner.store import list_variations, read_run, read_variation
 ROWS = 1000
 NAME = "kiln-views"
 FAST = ("--quiet", "--workers", "1")
-SPEC = """\
-name: kiln-views
-dataset:
-  path: ../datasets/kiln.csv
-tiers:
-  - [supplier, clay_lot, moisture, glaze_batch]
-  - [press_force, kiln_peak, dwell, cooling]
-  - [crack, warp, shade]
-  - [grade]
-score: {name: bdeu}
-search:
-  seed: 2
-"""
+SPEC = kiln_spec_text(NAME)
 #: two combinations each: the first summary over ESS 1 and 50, the second over 1 and 200
 VARY_A = "vary:\n  score.ess: [1, 50]\n"
 VARY_B = "vary:\n  score.ess: [1, 200]\n"
@@ -43,10 +31,7 @@ def two_summaries(tmp_path_factory: pytest.TempPathFactory,
                   cli_session: CliCall) -> tuple[Path, dict[str, Any], dict[str, Any]]:
     """A project with two variation summaries of one spec (VARY_A, then VARY_B)."""
     project = tmp_path_factory.mktemp("views")
-    (project / "specs").mkdir()
-    (project / "datasets").mkdir()
-    lines = (ROOT / "datasets" / "kiln-line.csv").read_text(encoding="utf-8").splitlines()
-    (project / "datasets" / "kiln.csv").write_text("\n".join(lines[: ROWS + 1]) + "\n")
+    write_kiln_data(project, ROWS)
     spec = project / "specs" / "views.yaml"
     docs = []
     for vary in (VARY_A, VARY_B):
