@@ -337,24 +337,3 @@ def write_summary(outcomes: Sequence[SpecOutcome], results: Path) -> Path:
                         "class": [s["edge"] for s in shares if s["class"] == 1.0]},
     }
     return write_variation(results, doc)
-
-
-def run_specs(specs: Sequence[str | Path], results: Path, engine: Engine,
-              data_path: str | Path | None = None, seed: int | None = None,
-              reporter: Reporter = SILENT, reuse_bins: bool | None = None) -> list[RunResult]:
-    """Prepare every spec, learn them all on ``engine``, store them in the given order;
-    bad input in any spec (before or while learning) raises InputError and stores none."""
-    planned = plan_specs(specs, results, data_path, seed, reuse_bins)
-    todo = [p.prepared for p in planned]
-    for item in todo:
-        ensure_writable(results, item.spec.name)
-    if len(todo) == 1:
-        learned = [_Learned(*learn(todo[0], seed, engine, reporter))]
-    else:
-        with reporter.bar("specs", len(todo)) as bar:
-            learned = engine.map(learn_unit, seed, todo, bar)
-    failed = [p for item in learned for p in item.problems]
-    if failed:
-        raise InputError(failed)
-    return [store_learned(p, item.record, item.trace, results)
-            for p, item in zip(todo, learned, strict=True) if item.record is not None]
