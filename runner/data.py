@@ -71,8 +71,12 @@ MISSING_SPELLINGS: tuple[str, ...] = ("", "NA", "N/A", "NaN", "nan", "null", "NU
 #: ``missing`` policies: stop with an error, drop every row with a missing value, or keep
 #: every row and mark each missing cell (``available-case``: a discrete column's code equal
 #: to its number of states; a continuous column's value NaN), so each family is scored on
-#: the rows where its variables are present (:mod:`runner.scores.available`).
-MISSING_POLICIES: tuple[str, ...] = ("error", "drop-rows", "available-case")
+#: the rows where its variables are present (:mod:`runner.scores.available`); under
+#: ``structural-em`` the cells are marked the same way and every completion of a row is
+#: weighted by EM (:mod:`runner.scores.expected`).
+MISSING_POLICIES: tuple[str, ...] = ("error", "drop-rows", "available-case", "structural-em")
+#: The policies that keep rows with gaps.
+KEEPS_GAPS: tuple[str, ...] = ("available-case", "structural-em")
 
 #: Most states one column can have (codes are at most 16-bit).
 MAX_ENCODABLE_STATES = 1 << 16
@@ -271,7 +275,7 @@ def load_dataset(
     warnings = tuple(p for p in problems if p.severity != "error") + encoded.warnings
     return Dataset(str(path), sha, tuple(names), encoded.states, encoded.codes,
                    encoded.dropped_rows, warnings, encoded.kinds, encoded.kind_reasons,
-                   encoded.values, missing == "available-case")
+                   encoded.values, missing in KEEPS_GAPS)
 
 
 def encode_frame(
@@ -312,7 +316,7 @@ def encode_frame(
         raise InputError(problems)
     return Dataset(path, sha256, tuple(names), encoded.states, encoded.codes,
                    encoded.dropped_rows, encoded.warnings, encoded.kinds, encoded.kind_reasons,
-                   encoded.values, missing == "available-case")
+                   encoded.values, missing in KEEPS_GAPS)
 
 
 # --------------------------------------------------------------------------- reading the file
@@ -1180,7 +1184,7 @@ def _encode_columns(
     spellings = MISSING_SPELLINGS if missing_values is None else tuple(missing_values)
     labelled = _parse_columns(names, columns, declared or {}, spellings, report)
     keep = _rows_to_keep(names, labelled, n_rows, missing, report)
-    reserve = missing == "available-case"
+    reserve = missing in KEEPS_GAPS
     parsed: list[_Column | None] = list(labelled)
     del labelled
     dropped = int(n_rows - keep.sum())
@@ -1236,14 +1240,17 @@ def _rows_to_keep(names: Sequence[str], parsed: Sequence[_Column], n_rows: int,
             _report_missing(name, mask, report)
         else:
             keep &= ~mask
-    if missing == "available-case":
+    if missing in KEEPS_GAPS:
         gaps = int(n_rows - keep.sum())
+        how = ("each family is scored on the rows where its columns are present, assuming "
+               "values are missing completely at random" if missing == "available-case" else
+               "each missing cell is filled with every state, weighted by EM, assuming "
+               "values are missing at random")
         if gaps:
             report.warnings.append(Problem(
                 report.file, f"{gaps:,} of {n_rows:,} data rows have a missing value; kept "
-                f"({report.key_prefix}.missing: available-case: each family is scored on the "
-                "rows where its columns are present, assuming values are missing completely "
-                "at random)", key=f"{report.key_prefix}.missing", severity="warning"))
+                f"({report.key_prefix}.missing: {missing}: {how})",
+                key=f"{report.key_prefix}.missing", severity="warning"))
         keep = np.ones(n_rows, dtype=bool)
     return keep
 

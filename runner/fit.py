@@ -147,6 +147,23 @@ def fit_discrete(codes: np.ndarray, arities: np.ndarray,
     return [discrete_family(codes, arities, c, tuple(ps)) for c, ps in enumerate(parent_sets)]
 
 
+def expected_family(codes: np.ndarray, weights: np.ndarray, arities: np.ndarray,
+                    child: int, parents: Sequence[int]) -> DiscreteFamily:
+    """One family's *expected* counts over completed rows ``codes`` (no missing cell)
+    weighted by ``weights`` (structural EM: :mod:`runner.scores.expected`), as a
+    :class:`DiscreteFamily` whose counts are floats."""
+    r = int(arities[child])
+    possible = int(np.prod([int(arities[p]) for p in parents], dtype=object)) if parents else 1
+    config = _codes_of(codes, arities, parents)
+    configs, first, inverse = np.unique(config, return_index=True, return_inverse=True)
+    flat = np.bincount(inverse.astype(np.int64) * r + codes[child].astype(np.int64),
+                       weights=weights, minlength=configs.size * r)
+    parent_states = (codes[list(parents)][:, first].T.astype(np.int64) if parents
+                     else np.zeros((configs.size, 0), np.int64))
+    return DiscreteFamily(child, tuple(parents), r, possible, configs, parent_states,
+                          flat.reshape(configs.size, r))
+
+
 def fit_gaussian(values: np.ndarray | GaussianStatistics,
                  parent_sets: Sequence[Sequence[int]]) -> list[LinearGaussianFamily]:
     """Linear-Gaussian parameters of every family on ``values`` (variables x rows), or on
@@ -266,6 +283,7 @@ def mixed_model_document(families: Sequence[MixedFamily], names: Sequence[str],
 def fit_model(dataset: Dataset, gaussian: bool, parent_sets: Sequence[Sequence[int]],
               pseudo_count: float, graph_hash: str,
               statistics: GaussianStatistics | None = None, mixed: bool = False,
+              expected: tuple[np.ndarray, np.ndarray] | None = None,
               ) -> tuple[dict[str, Any], list[DiscreteFamily] | list[LinearGaussianFamily]
                          | list[MixedFamily]]:
     """The ``model.json`` document of a learned graph on ``dataset`` (the learning rows)
@@ -273,7 +291,8 @@ def fit_model(dataset: Dataset, gaussian: bool, parent_sets: Sequence[Sequence[i
     under the mixed score (``mixed``), else tables.
 
     ``statistics`` are the learning rows' (the scorer's), computed from
-    ``dataset.values`` when not given."""
+    ``dataset.values`` when not given. ``expected`` (structural EM) is the completed codes
+    and their weights: the tables then hold expected counts (:func:`expected_family`)."""
     if mixed:
         families = fit_mixed(mixed_data(dataset), parent_sets)
         return mixed_model_document(families, dataset.names, dataset.states, pseudo_count,
@@ -285,7 +304,12 @@ def fit_model(dataset: Dataset, gaussian: bool, parent_sets: Sequence[Sequence[i
         gauss = fit_gaussian(source, parent_sets)
         return gaussian_model_document(gauss, parent_sets, dataset.names, dataset.rows,
                                        dataset.sha256, graph_hash), gauss
-    tables = fit_discrete(dataset.codes, dataset.arities, parent_sets)
+    if expected is not None:
+        completed, weights = expected
+        tables = [expected_family(completed, weights, dataset.arities, c, tuple(ps))
+                  for c, ps in enumerate(parent_sets)]
+    else:
+        tables = fit_discrete(dataset.codes, dataset.arities, parent_sets)
     return model_document(tables, dataset.names, dataset.states, pseudo_count, dataset.rows,
                           dataset.sha256, graph_hash), tables
 
@@ -361,7 +385,8 @@ def model_document(families: Sequence[DiscreteFamily], names: Sequence[str],
             rows_out.append({
                 "parents": [states[p][int(s)] for p, s in zip(fam.parents,
                                                               fam.parent_states[j], strict=True)],
-                "counts": [int(c) for c in fam.counts[j]],
+                "counts": ([int(c) for c in fam.counts[j]] if fam.counts.dtype.kind in "iu"
+                           else [float(c) for c in fam.counts[j]]),
                 "probabilities": [float(x) for x in probs[j]],
             })
         variables[names[fam.child]] = {

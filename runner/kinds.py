@@ -37,6 +37,7 @@ from runner.errors import InputError, Problem
 from runner.registry import BGeParams, Params
 from runner.scores import FamilyScorer, build_cg_scorer, build_gaussian_scorer, build_scorer
 from runner.scores.available import AvailableCaseScorer
+from runner.scores.expected import SelfWeightedScorer, TooManyCompletions, complete_rows
 from runner.scores.gaussian import bge_prior
 
 #: Smallest eigenvalue of the correlation matrix below which it counts as singular.
@@ -117,13 +118,40 @@ def resolve_columns(
     return resolved
 
 
-def make_scorer(score: Mapping[str, Any], dataset: Dataset) -> FamilyScorer:
+def make_scorer(score: Mapping[str, Any], dataset: Dataset,
+                missing: str | None = None) -> FamilyScorer | SelfWeightedScorer:
     """The cached family scorer of the spec's ``score`` block on a resolved data set: the
-    registry entry's builder, with the entry's own keys."""
+    registry entry's builder, with the entry's own keys. With gaps kept in the data
+    (``incomplete``), the scorer of the ``dataset.missing`` policy (``missing``):
+    structural EM's :class:`~runner.scores.expected.SelfWeightedScorer` or the
+    available-case scorer."""
     entry = registry.score(str(score.get("name", "bic")))
     if getattr(dataset, "incomplete", False):
+        if missing == "structural-em":
+            return structural_em_scorer(entry.name, dataset)
         return available_case_scorer(entry.name, dataset)
     return entry.builder.load()(entry.name, entry.params.pick(score), dataset)
+
+
+def structural_em_scorer(name: str, dataset: Dataset) -> SelfWeightedScorer:
+    """The scorer of ``dataset.missing: structural-em`` (:mod:`runner.scores.expected`):
+    every completion of every row, weighted per DAG by EM; InputError for a score without
+    that form or a table with too many gaps per row."""
+    if name not in registry.AVAILABLE_CASE_SCORES:
+        raise InputError(Problem(
+            dataset.path, f"the data was read with dataset.missing: structural-em, which "
+            f"works with the scores {', '.join(registry.AVAILABLE_CASE_SCORES)} only, not "
+            f"score.name '{name}'", key="score.name", value=name))
+    try:
+        completions = complete_rows(dataset.codes, dataset.arities)
+    except TooManyCompletions as error:
+        raise InputError(Problem(
+            dataset.path, f"dataset.missing: structural-em fills every missing cell with "
+            f"each of its column's states, and these rows have too many gaps for that: "
+            f"{error}; use dataset.missing: available-case or drop-rows, or leave out the "
+            f"columns with the most gaps (dataset.drop)", key="dataset.missing",
+            value="structural-em")) from None
+    return SelfWeightedScorer(name, completions, dataset.arities)
 
 
 def available_case_scorer(name: str, dataset: Dataset) -> FamilyScorer:

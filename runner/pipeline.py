@@ -39,6 +39,7 @@ from runner.progress import SILENT, Progress, Reporter
 from runner.registry import RestartParams
 from runner.scores import FamilyScorer
 from runner.scores.available import AvailableCaseScorer
+from runner.scores.expected import ExpectedCountScorer, SelfWeightedScorer
 from runner.scores.gaussian import GaussianScorer, GaussianStatistics
 from runner.search import Budget, MoveEngine, RunSummary, SearchOutcome, local_search, with_restarts
 from runner.search.budget import BUDGET_REASONS
@@ -54,6 +55,7 @@ from runner.spec import (
 )
 from runner.spec.loader import DICT_ORIGIN, load_spec_dict
 from runner.store import find_twin, model_reference, read_baseline, trace_csv, write_run
+from runner.structural_em import structural_em
 
 #: How the Python API names inputs that are not files: a dict spec and a DataFrame.
 FRAME_ORIGIN = "<DataFrame>"
@@ -215,9 +217,12 @@ def learning_rows(normal: Mapping[str, Any], dataset: Dataset) -> tuple[Dataset,
     return dataset.take_rows(learn_rows), dataset.take_rows(held_rows)
 
 
-def spec_scorer(normal: Mapping[str, Any], dataset: Dataset) -> FamilyScorer:
-    """The normalised spec's score bound to a resolved data set (its learning rows)."""
-    return make_scorer(normal["score"], dataset)
+def spec_scorer(normal: Mapping[str, Any],
+                dataset: Dataset) -> FamilyScorer | SelfWeightedScorer:
+    """The normalised spec's score bound to a resolved data set (its learning rows); under
+    ``dataset.missing: structural-em`` the scorer that weighs each DAG by its own EM
+    weights (:mod:`runner.scores.expected`)."""
+    return make_scorer(normal["score"], dataset, (normal.get("dataset") or {}).get("missing"))
 
 
 @dataclass(frozen=True)
@@ -230,7 +235,7 @@ class StoredInputs:
     path: Path
     data_sha256: str
 
-    def scorer(self) -> FamilyScorer:
+    def scorer(self) -> FamilyScorer | SelfWeightedScorer:
         """The scorer a run of ``normal`` builds on these rows."""
         return spec_scorer(self.normal, self.learning)
 
@@ -429,6 +434,40 @@ def run_search(
     return outcome, runs, parameters, {"proven_optimal": False}
 
 
+SearchRun = tuple[SearchOutcome, list[RunSummary], dict[str, Any], dict[str, Any]]
+
+
+def search_scored(
+    prepared: Prepared, scorer: FamilyScorer | SelfWeightedScorer, budget: Budget,
+    rng: np.random.Generator, bar: Progress | None = None,
+) -> tuple[SearchRun, FamilyScorer]:
+    """:func:`run_search` with the spec's scorer, and the scorer of the learned graph's
+    score. Under ``dataset.missing: structural-em`` the search runs in rounds of
+    structural EM (:func:`runner.structural_em.structural_em`, from the spec's start
+    graph each round, the budget's steps and seconds shared by all rounds) and the
+    scorer is the learned DAG's own expected-count scorer; the record's search gains a
+    ``structural_em`` block."""
+    if not isinstance(scorer, SelfWeightedScorer):
+        return run_search(prepared, scorer, budget, rng, bar), scorer
+    start: list[list[int]] = [[] for _ in prepared.dataset.names]
+    for i, j in sorted(prepared.constraints.required):
+        start[j].append(i)
+
+    state = rng.bit_generator.state
+
+    def one_round(round_scorer: FamilyScorer) -> SearchRun:
+        rng.bit_generator.state = state  # every round breaks ties as the first did
+        found = run_search(prepared, round_scorer, budget, rng, bar)
+        budget.spent_steps += found[0].steps
+        return found
+
+    em = structural_em(scorer, one_round, lambda found: found[0].parent_sets, start)
+    outcome, runs, parameters, extra = em.result
+    block = {"converged": em.converged, "completed_rows": scorer.completions.size,
+             "rounds": em.rounds}
+    return (outcome, runs, parameters, {**extra, "structural_em": block}), em.scorer
+
+
 def spec_budget(spec: Spec, deadline: float | None = None) -> Budget:
     """A fresh budget from the spec's ``search.budget``; with ``deadline`` (a wall-clock
     ``time.time()``), at most the seconds left until it."""
@@ -447,7 +486,7 @@ def search_on(prepared: Prepared, dataset: Dataset, rng: np.random.Generator,
     search converged."""
     spec = prepared.spec
     scorer = spec_scorer(normalised_spec(spec), dataset)
-    outcome, *_ = run_search(prepared, scorer, spec_budget(spec, deadline), rng)
+    (outcome, *_), _ = search_scored(prepared, scorer, spec_budget(spec, deadline), rng)
     return [tuple(ps) for ps in outcome.parent_sets], outcome.converged
 
 
@@ -529,15 +568,16 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
 
     score_spec = normalised_spec(spec)["score"]
     part, held = split_learning_rows(prepared)
-    scorer = spec_scorer(normalised_spec(spec), part.dataset)
-    statistics = scorer.statistics if isinstance(scorer, GaussianScorer) else None
+    asked = spec_scorer(normalised_spec(spec), part.dataset)
+    statistics = asked.statistics if isinstance(asked, GaussianScorer) else None
     b = spec.search.budget
     budget = spec_budget(spec)
     rng = np.random.default_rng(np.random.SeedSequence(effective_seed))
     try:
         bar = _search_bar(prepared, reporter)
         try:
-            outcome, runs, parameters, extra = run_search(prepared, scorer, budget, rng, bar)
+            (outcome, runs, parameters, extra), scorer = search_scored(
+                prepared, asked, budget, rng, bar)
         finally:
             if bar is not None:
                 bar.close()
@@ -558,7 +598,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
         "per_row": total / part.dataset.rows,
         "families": families,
         "score_equivalent": (registry.score(spec.score.name).score_equivalent
-                             and not isinstance(scorer, AvailableCaseScorer)),
+                             and not isinstance(scorer, AvailableCaseScorer | ExpectedCountScorer)),
     }
     score_block.update(score_record(score_spec, len(names)))
     if isinstance(scorer, AvailableCaseScorer):
@@ -568,7 +608,9 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     gaussian = is_gaussian(score_spec["name"])
     model, fitted = fit_model(part.dataset, gaussian, outcome.parent_sets, pseudo_count,
                               graph_sha256(edges), statistics,
-                              mixed=is_mixed(score_spec["name"]))
+                              mixed=is_mixed(score_spec["name"]),
+                              expected=(scorer.completions.codes, scorer.weights)
+                              if isinstance(scorer, ExpectedCountScorer) else None)
     record: dict[str, Any] = {
         "format_version": 2,  # runner.record.FORMAT_VERSION
         "run_id": None,

@@ -146,6 +146,25 @@ class Phase(Fixed):
     end_score: float
 
 
+class EMRound(Fixed):
+    """One round of structural EM: the proposed DAG's expected score under the weights
+    of the round, the EM iterations those weights took, its edge count, whether kept."""
+
+    round: int
+    expected_score: float
+    em_iterations: int
+    edges: int
+    kept: bool
+
+
+class StructuralEMBlock(Fixed):
+    """Structural EM's rounds (``dataset.missing: structural-em``)."""
+
+    converged: bool
+    completed_rows: int
+    rounds: list[EMRound]
+
+
 class Search(Fixed):
     """The search as run. ``parameters`` is free-form: each method has its own settings
     (restarts and kick, tabu tenure and patience, the order, candidate-set limits)."""
@@ -165,6 +184,7 @@ class Search(Fixed):
     optimal_for_order: bool | None = None
     candidate_sets: dict[str, int] | None = None
     phases: list[Phase] | None = None
+    structural_em: StructuralEMBlock | None = None
 
 
 class Seconds(Fixed):

@@ -141,10 +141,23 @@ def network_context(record: Mapping[str, Any], show_forbidden: bool) -> dict[str
 
 
 def available_case_line(record: Mapping[str, Any]) -> str | None:
-    """The caution line of a run under ``dataset.missing: available-case`` (None
-    otherwise): the rows each family kept and the assumption behind them."""
+    """The caution line of a run under ``dataset.missing: available-case`` or
+    ``structural-em`` (None otherwise): what was done with the gaps and the assumption
+    behind it."""
     spec = record.get("spec") or {}
-    if (spec.get("dataset") or {}).get("missing") != "available-case":
+    policy = (spec.get("dataset") or {}).get("missing")
+    if policy == "structural-em":
+        em = (record.get("search") or {}).get("structural_em") or {}
+        rounds = len(em.get("rounds") or [])
+        return ("This run kept rows with missing values (dataset.missing: structural-em): "
+                "each missing cell was filled with every state of its column, weighted by "
+                "its probability under the network fitted by EM, and the structure was "
+                f"searched on those expected counts in {rounds} round(s) of structural EM "
+                "(Friedman 1997); the tables hold expected counts. This assumes the values "
+                "are missing at random (whether a value is missing may depend on values "
+                "seen, not on the missing ones); otherwise the filled counts are biased "
+                "and the graph and the tables can be wrong.")
+    if policy != "available-case":
         return None
     rows = (record.get("score") or {}).get("available_rows") or {}
     total = (record.get("data") or {}).get("rows")

@@ -126,11 +126,13 @@ class DatasetSpec(_Section):
     sha256: Annotated[StrictStr, Field(pattern=SHA256_PATTERN)] | None = Field(
         None, description="Optional pin: sha256 of the data file; a different file stops the "
         "run.")
-    missing: Literal["error", "drop-rows", "available-case"] = Field(
-        "error", description="What an empty cell does: stop with an error, drop its row, or "
+    missing: Literal["error", "drop-rows", "available-case", "structural-em"] = Field(
+        "error", description="What an empty cell does: stop with an error, drop its row, "
         "keep the row and score each family on the rows where its columns are present "
-        "(available-case; scores loglik, aic, bic; assumes values missing completely at "
-        "random).")
+        "(available-case; assumes values missing completely at random), or keep the row and "
+        "fill its gaps with every state weighted by EM (structural-em; assumes values "
+        "missing at random). Both keep-the-row policies take the scores loglik, aic and bic "
+        "and a DAG search.")
     max_states: Annotated[StrictInt, Field(ge=2)] = Field(
         64, description="Most distinct values a discrete column may have; an undeclared "
         "numeric column with more is continuous.")
@@ -319,7 +321,8 @@ class Spec(_Section):
             return data
         name = score.get("name", "bic") if isinstance(score, dict) else "bic"
         dataset = data.get("dataset")
-        if isinstance(dataset, dict) and dataset.get("missing") == "available-case":
+        if isinstance(dataset, dict) and dataset.get("missing") in ("available-case",
+                                                                    "structural-em"):
             # families counted on different rows: no score is score-equivalent then
             return {**data, "search": {**(search or {}), "method": "hill-climb"}}
         return {**data, "search": {**(search or {}), "method": default_method(str(name))}}

@@ -93,30 +93,34 @@ def _holdout_not_under_mixed(spec: Spec, where: Where) -> list[Problem]:
 
 def _available_case_scores(spec: Spec, where: Where) -> list[Problem]:
     """``missing: available-case`` scores each family by its node-average likelihood
-    (runner.scores.available), defined for the penalised log-likelihood scores only; the
-    held-out fit needs complete rows."""
-    if spec.dataset.missing != "available-case":
+    (runner.scores.available) and ``structural-em`` by expected counts
+    (runner.scores.expected), both defined for the penalised log-likelihood scores only
+    and with no score-equivalent form; the held-out fit needs complete rows."""
+    policy = spec.dataset.missing
+    if policy not in ("available-case", "structural-em"):
         return []
     problems = []
     if spec.score.name not in registry.AVAILABLE_CASE_SCORES:
         problems.append(where.problem(
-            "score.name", f"dataset.missing: available-case works with the scores "
+            "score.name", f"dataset.missing: {policy} works with the scores "
             f"{', '.join(registry.AVAILABLE_CASE_SCORES)} only, not score.name "
             f"'{spec.score.name}'; use one of those, or set dataset.missing: drop-rows",
             value=spec.score.name))
     method = (registry.method(spec.search.method)
               if spec.search.method in registry.METHOD_NAMES else None)
+    why = ("a family is counted on the rows where its own columns are present"
+           if policy == "available-case" else
+           "each graph's counts are weighted by its own EM fit")
     if method is not None and method.needs_score_equivalent:
         problems.append(where.problem(
             "search.method", f"search method '{spec.search.method}' needs a score-equivalent "
-            "score, and under dataset.missing: available-case no score is one (a family is "
-            "counted on the rows where its own columns are present, so equivalent graphs "
-            "can score differently); use a DAG search such as 'hill-climb' or 'tabu'",
-            value=spec.search.method))
+            f"score, and under dataset.missing: {policy} no score is one ({why}, so "
+            "equivalent graphs can score differently); use a DAG search such as 'hill-climb' "
+            "or 'tabu'", value=spec.search.method))
     if spec.evaluation is not None:
         problems.append(where.problem(
             "evaluation", "held-out evaluation needs complete rows and is not available "
-            "under dataset.missing: available-case; drop 'evaluation', or set "
+            f"under dataset.missing: {policy}; drop 'evaluation', or set "
             "dataset.missing: drop-rows"))
     return problems
 
