@@ -326,3 +326,25 @@ def test_exact_search_refuses_at_validate_and_run_before_allocating(
     done = dagmill("run", "exact.yaml", cwd=tmp_path)
     assert done.returncode == 2 and expected in done.stderr + done.stdout
     assert list_runs(tmp_path / "results", "exact-mem") == []
+
+
+@pytest.mark.parametrize("spent", [0, 3])
+def test_max_steps_holds_over_restarts_and_earlier_spending(spent: int, asia: Network) -> None:
+    """Restarts share one step budget with what was spent before the call (the earlier
+    rounds of structural EM): the runs together apply exactly ``max_steps - spent`` moves
+    when there is enough to do, neither more nor fewer (a check that counted the last
+    run's steps twice stopped the restarts early), and the earlier spending is left as
+    it was for the caller."""
+    scorer = build_scorer("bic", asia.codes, asia.arities)
+    constraints = build_constraints(asia.names)
+    budget = Budget(max_steps=14)
+    budget.spent_steps = spent
+
+    def make(ps: object) -> MoveEngine:
+        return MoveEngine(scorer, constraints, ps, budget)  # type: ignore[arg-type]
+
+    out, runs = with_restarts(hill_climb, make, [() for _ in asia.names], budget,
+                              np.random.default_rng(0), restarts=5, kick_moves=1)
+    assert out.steps == sum(r.steps for r in runs) == 14 - spent  # kicks are not steps
+    assert out.stop_reason == "max_steps" and len(runs) >= 2
+    assert budget.spent_steps == spent

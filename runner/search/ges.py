@@ -87,11 +87,12 @@ def turning_phase(engine: ClassEngine, budget: Budget, rng: np.random.Generator 
     edges of the member held, with the move engine's reversal deltas and legality.
     """
     member = MoveEngine(engine.scorer, engine.constraints, engine.parent_sets(), budget)
-    budget.spent_steps = len(trace)
+    base = budget.spent_steps
+    budget.spent_steps = base + len(trace)
     try:
         outcome = climb(member, budget, partial(steepest_move, rng=rng, kinds=("reverse",)))
     finally:
-        budget.spent_steps = 0
+        budget.spent_steps = base
     if outcome.steps:
         engine.adopt(outcome.parent_sets, math.fsum(row.delta for row in outcome.trace))
     trace.extend(replace(row, step=row.step + len(trace), score=engine.score - (

@@ -63,6 +63,7 @@ def with_restarts(
     starts from the best graph so far and spends the shared budget), so they run in
     sequence, never as independent units on an engine.
     """
+    base = budget.spent_steps  # steps spent before this call (earlier rounds) count too
     engine = make_engine(start)
     start_score = engine.score
     best = local_search(engine, budget)
@@ -72,6 +73,7 @@ def with_restarts(
     if tick is not None:
         tick()
     for run in range(1, restarts + 1):
+        budget.spent_steps = base
         if budget.exhausted(steps, engine.scorer.evaluations) is not None:
             break
         engine = make_engine(best.parent_sets)
@@ -80,7 +82,7 @@ def with_restarts(
             break
         kicked = kick(engine, kick_moves, rng)
         start_score = engine.score
-        budget.spent_steps = steps
+        budget.spent_steps = base + steps
         outcome = local_search(engine, budget)
         runs.append(RunSummary(run, len(kicked), start_score, outcome.score, outcome.steps,
                                outcome.stop_reason))
@@ -92,7 +94,7 @@ def with_restarts(
             best = outcome
         if tick is not None:
             tick()
-    budget.spent_steps = 0
+    budget.spent_steps = base
     final = replace(best, steps=steps, trace=trace, stop_reason=stop_reason,
                     evaluations=engine.scorer.evaluations, cache_hits=engine.scorer.hits,
                     seconds=budget.elapsed())
