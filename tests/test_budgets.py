@@ -30,7 +30,7 @@ from runner.search.order import order_search
 from runner.search.parent_sets import SearchRefused
 from runner.search.restarts import with_restarts
 from runner.store import VOLATILE_KEYS, list_runs
-from tests.conftest import BOOT, CliCall, write_case
+from tests.conftest import BOOT, CliCall, Network, write_case
 
 
 def wide_codes(columns: int, rows: int, seed: int = 7) -> tuple[np.ndarray, np.ndarray]:
