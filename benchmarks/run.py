@@ -5,6 +5,7 @@ Usage::
     python -m benchmarks [--cases alarm-10k,asia-10k] [--repeats 3] [--out benchmarks]
     python -m benchmarks --quality [--networks asia,alarm] [--sample-seeds 13] ...
     python -m benchmarks --budget [--budget-columns 300] [--budget-label after] ...
+    python -m benchmarks --scale [--scale-cases alarm-10k,pigs-5k-cap4,...] [--repeats 1]
 
 ``--quality`` runs the search-quality suite (:mod:`benchmarks.quality`) instead of the
 speed suite and writes ``RESULTS-quality.md`` and ``RESULTS-quality.json``; ``--budget``
@@ -209,7 +210,11 @@ def machine_line() -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    from benchmarks import budget, quality  # they import this module: load them once it is complete
+    from benchmarks import (  # they import this module: load them once it is complete
+        budget,
+        quality,
+        scale,
+    )
 
     parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__)
     parser.add_argument("--cases", default=DEFAULT_CASES)
@@ -221,14 +226,19 @@ def main(argv: list[str] | None = None) -> int:
                         help="run the search-quality suite instead of the speed suite")
     parser.add_argument("--budget", action="store_true",
                         help="run the budget-keeping case instead of the speed suite")
+    parser.add_argument("--scale", action="store_true",
+                        help="run the scale suite (wide networks, candidates, 1M rows)")
     quality.add_arguments(parser)
     budget.add_arguments(parser)
+    scale.add_arguments(parser)
     args = parser.parse_args(argv)
     Path(args.out).mkdir(parents=True, exist_ok=True)  # a fresh --out folder is made
     if args.quality:
         return quality.run(args)
     if args.budget:
         return budget.run(args)
+    if args.scale:
+        return scale.run(args)
     warnings.filterwarnings("ignore")
     rows = []
     for name in args.cases.split(","):

@@ -73,6 +73,7 @@ if TYPE_CHECKING:
     import networkx as nx
     import pandas as pd
 
+    from runner.engines import Engine
     from runner.graph import Cpdag
     from runner.pipeline import Prepared, RunResult
 
@@ -442,13 +443,15 @@ def _prepare(spec: SpecSource, data: Any, bins_from: Path | None) -> Prepared:
 
 def learn(spec: SpecSource, data: str | os.PathLike[str] | pd.DataFrame | None = None, *,
           seed: int | None = None,
-          bins_from: str | os.PathLike[str] | None = None) -> LearnedNetwork:
+          bins_from: str | os.PathLike[str] | None = None,
+          engine: str | None = None, workers: int | None = None) -> LearnedNetwork:
     """Learn a network from a spec and data, as ``dagmill run`` does (nothing is stored
     until :meth:`LearnedNetwork.save`).
 
     The spec's score (e.g. BIC, Schwarz 1978; BDeu, Heckerman, Geiger & Chickering
     1995), search method, constraints, bootstrap (Friedman, Goldszmidt & Wyner 1999) and
-    held-out evaluation all apply; the bootstrap replicates run in this process.
+    held-out evaluation all apply; the bootstrap replicates run in this process unless
+    ``engine`` or ``workers`` ask for more (as ``--engine`` and ``--workers`` do).
 
     Parameters
     ----------
@@ -467,6 +470,13 @@ def learn(spec: SpecSource, data: str | os.PathLike[str] | pd.DataFrame | None =
     bins_from
         A results folder: continuous columns are cut at the bin edges of the spec's
         baseline there (what ``dagmill run --data`` and ``dagmill check`` do).
+    engine
+        Where the bootstrap replicates run: ``"local"`` (a pool of processes on this
+        machine), ``"dask-local"`` (a Dask cluster started for the call) or
+        ``"dask://HOST:PORT"`` (a running scheduler); None (and no ``workers``): in this
+        process. The record is the same whatever the engine.
+    workers
+        The processes of a local engine (at most the usable cores; more are capped).
 
     Returns
     -------
@@ -489,13 +499,18 @@ def learn(spec: SpecSource, data: str | os.PathLike[str] | pd.DataFrame | None =
     a bootstrap approach. UAI.
     """
     prepared = _prepare(spec, data, None if bins_from is None else Path(bins_from))
-    return _learn(prepared, seed)
+    if engine is None and workers is None:
+        return _learn(prepared, seed)
+    from runner.engines import choose_engine, open_engine
+
+    with open_engine(choose_engine(engine, workers)) as opened:
+        return _learn(prepared, seed, opened)
 
 
-def _learn(prepared: Prepared, seed: int | None) -> LearnedNetwork:
+def _learn(prepared: Prepared, seed: int | None, engine: Engine | None = None) -> LearnedNetwork:
     from runner.pipeline import learn as learn_prepared
 
-    record, trace = learn_prepared(prepared, seed)
+    record, trace = learn_prepared(prepared, seed, engine)
     model = record.pop("_model")
     return LearnedNetwork(copy.deepcopy(record), model, trace, _prepared=prepared,
                           _learned=record)

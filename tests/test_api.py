@@ -450,3 +450,33 @@ def test_the_names_are_public_and_import_lazily() -> None:
     out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True,
                          text=True, check=True)
     assert out.stdout.strip() == "[]"
+
+
+@pytest.mark.slow
+def test_bootstrap_on_a_local_pool_gives_the_same_record(
+        case: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """``engine``/``workers`` run the bootstrap replicates on a real local pool of
+    processes (its ``map`` is called: a spy around the real method); the record's
+    bootstrap block is the in-process one, bit for bit."""
+    from runner.engines import LocalPool
+
+    calls = []
+    real = LocalPool.map
+
+    def spy(self: LocalPool, *args: Any, **kwargs: Any) -> Any:
+        calls.append(len(args[2]))
+        return real(self, *args, **kwargs)
+
+    monkeypatch.setattr(LocalPool, "map", spy)
+    here = runner.learn(case).record["bootstrap"]
+    assert calls == []
+    pooled = runner.learn(case, engine="local", workers=2).record["bootstrap"]
+    assert calls and pooled == here
+
+
+def test_a_bad_engine_is_bad_input(case: Path) -> None:
+    from runner.errors import InputError
+
+    with pytest.raises(InputError) as caught:
+        runner.learn(case, engine="carrier-pigeon")
+    assert any(p.key == "--engine" for p in caught.value.problems)
