@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import hashlib
 import time
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
@@ -43,6 +43,14 @@ from runner.scores.expected import ExpectedCountScorer, SelfWeightedScorer
 from runner.scores.gaussian import GaussianScorer, GaussianStatistics
 from runner.search import Budget, MoveEngine, RunSummary, SearchOutcome, local_search, with_restarts
 from runner.search.budget import BUDGET_REASONS
+from runner.search.candidates import (
+    DEFAULT_ALPHA,
+    DEFAULT_ROUNDS,
+    MMPC,
+    Screen,
+    screen_refusal,
+    screened_search,
+)
 from runner.search.parent_sets import SearchRefused
 from runner.search.whole import PlanContext, SearchTask
 from runner.spec import (
@@ -343,7 +351,16 @@ def _refusal(prepared: Prepared) -> registry.Refusal | None:
     refused = registry.compatibility(entry, registry.score(spec.score.name))
     if refused is None and entry.plan is not None:
         refused = entry.plan.load()(_params(entry, spec), _context(prepared))
-    return refused
+    return refused or _candidates_refusal(prepared)
+
+
+def _candidates_refusal(prepared: Prepared) -> registry.Refusal | None:
+    spec = prepared.spec
+    if spec.search.candidates is None:
+        return None
+    why = screen_refusal(spec.search.method, registry.score(spec.score.name).data_kind,
+                         prepared.dataset.incomplete)
+    return None if why is None else registry.Refusal("search.candidates", why)
 
 
 def _params(entry: registry.MethodEntry, spec: Spec) -> registry.Params:
@@ -402,25 +419,62 @@ def _consensus_hash(record: dict[str, Any]) -> str | None:
     return ((record.get("bootstrap") or {}).get("consensus") or {}).get("graph_sha256")
 
 
-def run_search(
-    prepared: Prepared, scorer: FamilyScorer, budget: Budget, rng: np.random.Generator,
-    bar: Progress | None = None,
-) -> tuple[SearchOutcome, list[RunSummary], dict[str, Any], dict[str, Any]]:
+Searched = tuple[SearchOutcome, list[RunSummary], dict[str, Any], dict[str, Any]]
+
+
+def run_search(prepared: Prepared, scorer: FamilyScorer, budget: Budget,
+               rng: np.random.Generator, bar: Progress | None = None,
+               data: Dataset | None = None) -> Searched:
     """Run the spec's search method (its registry entry); return its outcome, the runs of
     a restarted local search, the method's parameters and any extra record fields.
-    ``bar`` is advanced by exact search (per variable and layer) and restarts (per run)."""
+    ``bar`` is advanced by exact search (per variable and layer) and restarts (per run).
+    With ``search.candidates`` the candidate parents are screened on ``data`` (the rows
+    the scorer counts; default the prepared data set) and the search runs on them."""
     spec, names, constraints = prepared.spec, prepared.dataset.names, prepared.constraints
-    entry = registry.method(spec.search.method)
-    tick = None if bar is None else bar.advance
     start: list[list[int]] = [[] for _ in names]
     for i, j in sorted(constraints.required):
         start[j].append(i)
+    refused = _candidates_refusal(prepared)
+    if refused is not None:
+        raise SearchRefused(refused.key, refused.message)
+    screen = spec.search.candidates
+    if screen is None:
+        return _run_method(prepared, constraints, scorer, budget, rng, bar, start)
+    data = prepared.dataset if data is None else data
+    settings = Screen(screen.method, screen.k,
+                      DEFAULT_ROUNDS if screen.rounds is None else screen.rounds,
+                      DEFAULT_ALPHA if screen.alpha is None else screen.alpha)
+    # The bar counts the first round's runs (the later rounds get budgets of their own).
+    found = screened_search(
+        settings, data.codes, data.arities, constraints, budget, start,
+        lambda narrow, left, begin: _split(_run_method(
+            prepared, narrow, scorer, left, rng, bar if left is budget else None, begin)))
+    runs, parameters, extra = found.extra
+    extra = {**extra, "candidates": {
+        "method": settings.method, "k": settings.k, "rounds": found.rounds,
+        "parents": {names[c]: [names[p] for p in ps] for c, ps in enumerate(found.sets)},
+        **({"alpha": settings.alpha} if settings.method == MMPC else {})}}
+    return found.outcome, runs, parameters, extra
+
+
+def _split(found: Searched) -> tuple[SearchOutcome, tuple[list[RunSummary], dict[str, Any],
+                                                       dict[str, Any]]]:
+    return found[0], found[1:]
+
+
+def _run_method(prepared: Prepared, constraints: Constraints, scorer: FamilyScorer,
+                budget: Budget, rng: np.random.Generator, bar: Progress | None,
+                start: Sequence[Sequence[int]]) -> Searched:
+    spec = prepared.spec
+    entry = registry.method(spec.search.method)
+    tick = None if bar is None else bar.advance
     refused = registry.compatibility(entry, registry.score(spec.score.name))
     if refused is not None:
         raise SearchRefused(refused.key, refused.message)
     params = _params(entry, spec)
     if entry.kind == "whole":
-        task = SearchTask(_context(prepared), scorer, budget, rng, start, tick)
+        context = replace(_context(prepared), constraints=constraints)
+        task = SearchTask(context, scorer, budget, rng, start, tick)
         found = entry.whole()(params, task)
         return found.outcome, [], found.parameters, found.extra
     method = local_search(entry.name, rng, **params.effective())
@@ -434,13 +488,10 @@ def run_search(
     return outcome, runs, parameters, {"proven_optimal": False}
 
 
-SearchRun = tuple[SearchOutcome, list[RunSummary], dict[str, Any], dict[str, Any]]
-
-
 def search_scored(
     prepared: Prepared, scorer: FamilyScorer | SelfWeightedScorer, budget: Budget,
-    rng: np.random.Generator, bar: Progress | None = None,
-) -> tuple[SearchRun, FamilyScorer]:
+    rng: np.random.Generator, bar: Progress | None = None, data: Dataset | None = None,
+) -> tuple[Searched, FamilyScorer]:
     """:func:`run_search` with the spec's scorer, and the scorer of the learned graph's
     score. Under ``dataset.missing: structural-em`` the search runs in rounds of
     structural EM (:func:`runner.structural_em.structural_em`, from the spec's start
@@ -448,16 +499,16 @@ def search_scored(
     scorer is the learned DAG's own expected-count scorer; the record's search gains a
     ``structural_em`` block."""
     if not isinstance(scorer, SelfWeightedScorer):
-        return run_search(prepared, scorer, budget, rng, bar), scorer
+        return run_search(prepared, scorer, budget, rng, bar, data), scorer
     start: list[list[int]] = [[] for _ in prepared.dataset.names]
     for i, j in sorted(prepared.constraints.required):
         start[j].append(i)
 
     state = rng.bit_generator.state
 
-    def one_round(round_scorer: FamilyScorer) -> SearchRun:
+    def one_round(round_scorer: FamilyScorer) -> Searched:
         rng.bit_generator.state = state  # every round breaks ties as the first did
-        found = run_search(prepared, round_scorer, budget, rng, bar)
+        found = run_search(prepared, round_scorer, budget, rng, bar, data)
         budget.spent_steps += found[0].steps
         return found
 
@@ -486,7 +537,8 @@ def search_on(prepared: Prepared, dataset: Dataset, rng: np.random.Generator,
     search converged."""
     spec = prepared.spec
     scorer = spec_scorer(normalised_spec(spec), dataset)
-    (outcome, *_), _ = search_scored(prepared, scorer, spec_budget(spec, deadline), rng)
+    (outcome, *_), _ = search_scored(prepared, scorer, spec_budget(spec, deadline), rng,
+                                     data=dataset)
     return [tuple(ps) for ps in outcome.parent_sets], outcome.converged
 
 
@@ -577,7 +629,7 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
         bar = _search_bar(prepared, reporter)
         try:
             (outcome, runs, parameters, extra), scorer = search_scored(
-                prepared, asked, budget, rng, bar)
+                prepared, asked, budget, rng, bar, part.dataset)
         finally:
             if bar is not None:
                 bar.close()

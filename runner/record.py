@@ -165,6 +165,18 @@ class StructuralEMBlock(Fixed):
     rounds: list[EMRound]
 
 
+class CandidateScreen(Fixed):
+    """The candidate parents the search was narrowed to (``search.candidates``): the
+    screen with its settings as used, the re-estimation rounds run, and each variable's
+    candidate parents in the last search (required parents included)."""
+
+    method: str
+    k: int
+    rounds: int
+    parents: dict[str, list[str]]
+    alpha: float | None = None
+
+
 class Search(Fixed):
     """The search as run. ``parameters`` is free-form: each method has its own settings
     (restarts and kick, tabu tenure and patience, the order, candidate-set limits)."""
@@ -185,6 +197,8 @@ class Search(Fixed):
     candidate_sets: dict[str, int] | None = None
     phases: list[Phase] | None = None
     structural_em: StructuralEMBlock | None = None
+    #: With ``search.candidates`` (absent in records from before it).
+    candidates: CandidateScreen | None = None
 
 
 class Seconds(Fixed):
@@ -322,7 +336,7 @@ class _RunBody(Fixed):
         description="name, total value, value per row, each family's score, score-equivalence")
     search: Search = Field(
         description="method, start, seed, stop reason, steps, evaluations, cache hits, parameters, "
-                    "phases")
+                    "phases, candidate parents")
     edges: list[Edge] = Field(description="the learned DAG's edges, sorted `[from, to]` pairs")
     graph_sha256: Sha256 = Field(description="sha256 of the canonical edge list")
     seconds: Seconds = Field(description="timings: search, total (and bootstrap)")

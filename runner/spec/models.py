@@ -177,6 +177,33 @@ class BudgetSpec(_Section):
         600.0, description="Wall-clock limit in seconds; null: no limit.")
 
 
+class CandidatesSpec(_Section):
+    """Candidate parents screened before the search (wide data): each variable's
+    possible parents narrowed to a few (:mod:`runner.search.candidates`)."""
+
+    method: Literal["mutual-information", "mmpc"] = Field(description=(
+        "mutual-information: the k variables of highest mutual information, re-estimated "
+        "after each search (Sparse Candidate, Friedman, Nachman & Pe'er 1999); mmpc: the "
+        "Max-Min Parents and Children set by G-tests (Tsamardinos, Brown & Aliferis 2006)."))
+    k: PositiveCount = Field(10, description="Most candidate parents per variable (its "
+                             "required parents come in addition).")
+    rounds: Count | None = Field(None, description=(
+        "mutual-information only: re-estimation rounds after the first search (null: 2; "
+        "0: none)."))
+    alpha: Annotated[Real, Field(gt=0, lt=1)] | None = Field(
+        None, description="mmpc only: the level of the independence tests (null: 0.05).")
+
+    @model_validator(mode="after")
+    def _keys_of_the_method(self) -> CandidatesSpec:
+        if self.method == "mmpc" and self.rounds is not None:
+            raise ValueError("'rounds' only applies to method mutual-information (mmpc "
+                             "runs no re-estimation rounds): remove search.candidates.rounds")
+        if self.method == "mutual-information" and self.alpha is not None:
+            raise ValueError("'alpha' only applies to method mmpc (its test level): remove "
+                             "search.candidates.alpha")
+        return self
+
+
 class SearchSpec(TabuParams, FirstAscentParams, OrderParams, ExactParams, RestartParams,
                  _Section):
     """How the space of graphs is searched; the method's own keys (and the restart keys of
@@ -192,6 +219,10 @@ class SearchSpec(TabuParams, FirstAscentParams, OrderParams, ExactParams, Restar
         "empty", description="Start graph: no edges, or the required edges.")
     seed: Count = Field(0, description="Random seed (ties, restarts, sampling).")
     budget: BudgetSpec = Field(default_factory=BudgetSpec, description="Stopping limits.")
+    candidates: CandidatesSpec | None = Field(
+        None, description="Optional candidate parents screened before the search, for "
+        "wide data: {method: mutual-information | mmpc, k: 10}; local methods and ges only; "
+        "discrete scores only.")
 
 
 class GateSpec(_Section):
@@ -444,8 +475,8 @@ _OPTIONAL_DATASET_KEYS = ("missing_values", "use", "drop", "bins", "binning")
 
 def normalised_spec(spec: Spec, seed: int | None = None) -> dict[str, Any]:
     """The spec as plain JSON data, defaults filled in; ``seed`` overrides ``search.seed``.
-    ``tier_names`` and ``bootstrap.budget`` appear only when the spec gives them (older
-    specs keep their hash)."""
+    ``tier_names``, ``bootstrap.budget`` and ``search.candidates`` appear only when the
+    spec gives them (older specs keep their hash)."""
     data = spec.model_dump(mode="json")
     data.pop("extends", None)  # the merged spec is what counts
     if data.get("vary") is None:  # specs without vary keep their hash
@@ -453,6 +484,8 @@ def normalised_spec(spec: Spec, seed: int | None = None) -> dict[str, Any]:
         data.pop("vary_limit", None)
     if data.get("tier_names") is None:
         data.pop("tier_names", None)
+    if data["search"].get("candidates") is None:  # older specs keep their hash
+        data["search"].pop("candidates", None)
     if isinstance(data.get("bootstrap"), dict) and data["bootstrap"].get("budget") is None:
         data["bootstrap"].pop("budget", None)  # older bootstrap specs keep their hash
     for key in _OPTIONAL_DATASET_KEYS:  # absent when not given: older specs keep their hash
