@@ -51,7 +51,7 @@ import mmap
 import os
 import warnings
 from collections.abc import Callable, Iterator, Mapping, Sequence
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, BinaryIO
@@ -84,6 +84,8 @@ MAX_ENCODABLE_STATES = 1 << 16
 CHUNK_BYTES = 1 << 20
 #: Bytes read and parsed at a time: memory for reading stays near a few blocks.
 READ_BLOCK = 8 << 20
+#: Smallest piece of a block that pyarrow parses on its own (its threads share a block).
+ARROW_CHUNK = 1 << 20
 BOM = b"\xef\xbb\xbf"
 _SHOWN_LINES = 5  # row locations listed in one message
 _SHOWN_VALUES = 5  # undeclared values listed in one message
@@ -523,8 +525,16 @@ class _Scan:
 
 def _scan(handle: BinaryIO) -> _Scan:
     """One pass over the bytes in blocks: sha256, UTF-8 validity, the first NUL byte,
-    the first quote and the first CR not followed by LF, where the text ends."""
+    the first quote and the first CR not followed by LF, where the text ends. The hash
+    of a block is taken in a second thread (hashlib lets go of the GIL) while the block
+    is searched, one block at a time and in order."""
+    with ThreadPoolExecutor(max_workers=1) as hasher:
+        return _scan_blocks(handle, hasher)
+
+
+def _scan_blocks(handle: BinaryIO, hasher: ThreadPoolExecutor) -> _Scan:
     digest = hashlib.sha256()
+    hashing: Future[None] | None = None
     decoder = codecs.getincrementaldecoder("utf-8")()
     offset = start = 0
     head = b""
@@ -534,7 +544,9 @@ def _scan(handle: BinaryIO) -> _Scan:
     last_text = -1
     has_text = pending_cr = False
     while block := _read_full(handle, READ_BLOCK):
-        digest.update(block)
+        if hashing is not None:
+            hashing.result()
+        hashing = hasher.submit(digest.update, block)
         text = block
         if offset == 0:
             head = block[:2]
@@ -567,6 +579,8 @@ def _scan(handle: BinaryIO) -> _Scan:
         if kept > 0:
             last_text = offset + kept - 1
         offset += len(block)
+    if hashing is not None:
+        hashing.result()
     if bad_utf8 is None:
         pending = decoder.getstate()[0]
         try:
@@ -747,7 +761,8 @@ def _parse_body(handle: BinaryIO, scan: _Scan, file: str, problems: list[Problem
     Every record must have as many fields as the header (a blank line in a one-column
     file is one empty value); lines are records unless a field is quoted, and then the
     csv module finds the records and their first lines. The values of each block of
-    whole records are read by pandas' C parser.
+    whole records are read by pyarrow's CSV reader when the file has no quote and
+    pyarrow is installed (the fast path), else by pandas' C parser (the exact path).
     """
     blocks = _body_blocks(handle, scan)
     lines = _Lines(blocks)
@@ -859,10 +874,11 @@ class _BlockParser:
     """Blocks of whole records -> per-column codes of the distinct raw values.
 
     Each column keeps a dictionary from raw value to code (in order of first sight) and
-    one array of its rows' codes, in the narrowest unsigned type; pandas parses a block's
-    values (as categories, or as text where pandas would read the categories as numbers
-    or booleans). Once a record is found with a wrong field count, or pandas fails, no
-    value is parsed any more; the field counts are still checked to the end.
+    one array of its rows' codes, in the narrowest unsigned type; pyarrow parses a
+    quote-free block's values (as dictionary arrays), or else pandas (as categories, or
+    as text where pandas would read the categories as numbers or booleans). Once a
+    record is found with a wrong field count, or pandas fails, no value is parsed any
+    more; the field counts are still checked to the end.
     """
 
     def __init__(self, header_bytes: bytes, width: int, text_bytes: int,
@@ -881,6 +897,7 @@ class _BlockParser:
         self.stores: list[np.ndarray | None] = [None] * width
         self.as_text = [False] * width  # indexed by header position; used at ``selected``
         self.encoding = True  # False once pandas and the record count disagree
+        self.arrow = _arrow_csv()  # the fast parser of quote-free blocks (None: pandas only)
 
     @property
     def parsing(self) -> bool:
@@ -888,11 +905,21 @@ class _BlockParser:
         return self.counts.total == 0 and self.failure is None
 
     def simple_block(self, part: bytes, first_line: int, helper: ThreadPoolExecutor) -> int:
-        """Lines ``first_line`` on (no quotes; returns how many): the quick check that
-        every line has the header's width (in ``helper``, while pandas parses the
-        block), else every line's fields counted."""
+        """Lines ``first_line`` on (no quotes; returns how many).
+
+        pyarrow (when installed) reads the block first: it refuses a line whose field
+        count is not the header's, so a table with one row per line is the block, read
+        and checked. Otherwise (or without pyarrow) the exact path: the quick check that
+        every line has the header's width (in ``helper``, while pandas parses the block),
+        else every line's fields counted, so every message is the one it always was."""
         frame = None
         if self.parsing:
+            fast = self._arrow_table(part)
+            if fast is not None and fast.num_rows == part.count(b"\n"):
+                self.rows += fast.num_rows
+                if self.encoding:
+                    self._encode_arrow(fast, part)
+                return int(fast.num_rows)
             check = helper.submit(_all_lines_have_width, part, self.width)
             frame = self._frame(part)
             count, good = check.result()
@@ -941,6 +968,61 @@ class _BlockParser:
         except (pandas.errors.ParserError, ValueError) as exc:
             self.failure = str(exc).split("C error: ")[-1].strip()
             return None
+
+    def _arrow_table(self, part: bytes) -> Any | None:
+        """A quote-free block's selected columns parsed by pyarrow as dictionary arrays
+        (None when pyarrow is missing or cannot read it, e.g. a line with another number
+        of fields than the header, or reads a null: the exact path then decides).
+
+        Each line is one record split at every comma, the same values pandas reads: no
+        quote character, no value turned into a null or a number. A blank line is
+        skipped (pyarrow would otherwise make it a record of empty values, whatever the
+        width), so the table then has fewer rows than the block has lines. The header
+        line goes first and is skipped, so that a byte-order mark opening a value is
+        kept as pandas keeps it (pyarrow drops one only at the very start of its
+        input)."""
+        if self.arrow is None:
+            return None
+        arrow, reader = self.arrow
+        text = arrow.dictionary(arrow.int32(), arrow.string())
+        try:
+            table = reader.read_csv(
+                arrow.py_buffer(self.header + part),
+                read_options=reader.ReadOptions(
+                    column_names=[str(j) for j in range(self.width)], skip_rows=1,
+                    block_size=max(ARROW_CHUNK, len(part) // 2 + 1)),
+                parse_options=reader.ParseOptions(
+                    delimiter=",", quote_char=False, escape_char=False,
+                    newlines_in_values=False, ignore_empty_lines=True),
+                convert_options=reader.ConvertOptions(
+                    include_columns=[str(j) for j in self.selected],
+                    column_types={str(j): text for j in self.selected},
+                    strings_can_be_null=False, quoted_strings_can_be_null=False),
+                memory_pool=arrow.system_memory_pool())
+        except (arrow.ArrowException, ValueError, OSError):
+            return None
+        if any(column.null_count for column in table.columns):
+            return None
+        return table
+
+    def _encode_arrow(self, table: Any, part: bytes) -> None:
+        """Add the codes of a block parsed by pyarrow (one dictionary array per column and
+        per pyarrow chunk: each chunk's values are mapped through the column's lookup)."""
+        self.parsed_bytes += len(part)
+        start = self.filled
+        for j in self.selected:
+            lookup = self.lookups[j]
+            chunks = [(chunk.indices.to_numpy(zero_copy_only=False),
+                       np.fromiter((lookup.setdefault(label, len(lookup))
+                                    for label in chunk.dictionary.to_pylist()),
+                                   dtype=np.int64, count=len(chunk.dictionary)))
+                      for chunk in table.column(str(j)).chunks]
+            narrow = _narrowest(len(lookup))
+            at = start
+            for indices, lut in chunks:
+                self._store(j, lut.astype(narrow)[indices], at)
+                at += len(indices)
+        self.filled = start + table.num_rows
 
     def _encode(self, frame: pandas.DataFrame, part: bytes) -> None:
         """Add a block's codes. A column whose categories pandas turned into numbers or
@@ -997,6 +1079,16 @@ class _BlockParser:
             out.append(_Factorised(raw, list(self.lookups[j])))
             self.lookups[j] = {}
         return out
+
+
+def _arrow_csv() -> tuple[Any, Any] | None:
+    """``pyarrow`` and ``pyarrow.csv`` when pyarrow is installed (the ``parquet`` extra;
+    pandas imports it already), else None: quote-free blocks are then parsed by pandas
+    alone. Both parsers give the same values (``tests/test_loading.py`` holds them to it)."""
+    try:
+        return importlib.import_module("pyarrow"), importlib.import_module("pyarrow.csv")
+    except ImportError:
+        return None
 
 
 def _anonymous_array(size: int, dtype: Any) -> np.ndarray:

@@ -10,6 +10,9 @@
   and every message with its line, on named cases (RFC 4180 quoting, BOM, CRLF, missing
   values, bad rows) and on random files (hypothesis), also with tiny read blocks so that
   every block boundary is exercised.
+* Its two parsers of quote-free blocks, pyarrow's (the fast path, when pyarrow is
+  installed) and pandas' (the exact path), give the same outcome, sha256 and messages
+  included; the fast path is really taken on a well-formed file.
 """
 
 from __future__ import annotations
@@ -19,6 +22,7 @@ import math
 import os
 import subprocess
 import sys
+from collections.abc import Sequence
 from pathlib import Path
 from types import ModuleType
 from typing import Any
@@ -131,8 +135,20 @@ NAMED: dict[str, tuple[bytes, dict[str, Any]]] = {
 }
 
 
+@pytest.fixture(params=["pyarrow", "pandas"])
+def parser(request: pytest.FixtureRequest, monkeypatch: pytest.MonkeyPatch) -> str:
+    """Quote-free blocks parsed by pyarrow where it is installed (the fast path), or by
+    pandas alone, as without pyarrow (the exact path)."""
+    if request.param == "pandas":
+        monkeypatch.setattr(runner.data, "_arrow_csv", lambda: None)
+    elif runner.data._arrow_csv() is None:
+        pytest.skip("pyarrow is not installed")
+    return str(request.param)
+
+
 @pytest.mark.parametrize("case", sorted(NAMED))
-def test_named_cases_match_the_old_reader(tmp_path: Path, case: str, block: int) -> None:
+def test_named_cases_match_the_old_reader(tmp_path: Path, case: str, block: int,
+                                          parser: str) -> None:
     data, options = NAMED[case]
     path = tmp_path / "data.csv"
     path.write_bytes(data)
@@ -197,6 +213,118 @@ def test_blocks_do_not_change_a_larger_file(tmp_path: Path,
     small = same_as_legacy(path, missing="drop-rows")
     monkeypatch.setattr(runner.data, "READ_BLOCK", 1 << 23)
     assert outcome(runner.data.load_dataset, path, missing="drop-rows") == small
+
+
+def both_parsers(path: Path, monkeypatch: pytest.MonkeyPatch, **options: Any
+                 ) -> tuple[Any, int]:
+    """The outcome with the fast path (pyarrow) and how many blocks it encoded, after
+    checking that the exact path (pandas alone) gives the same outcome."""
+    if runner.data._arrow_csv() is None:
+        pytest.skip("pyarrow is not installed")
+    fast_blocks = 0
+    encode_arrow = runner.data._BlockParser._encode_arrow
+
+    def counted(self: Any, table: Any, part: bytes) -> None:
+        nonlocal fast_blocks
+        fast_blocks += 1
+        encode_arrow(self, table, part)
+
+    with monkeypatch.context() as patch:
+        patch.setattr(runner.data._BlockParser, "_encode_arrow", counted)
+        fast = outcome(runner.data.load_dataset, path, **options)
+    with monkeypatch.context() as patch:
+        patch.setattr(runner.data, "_arrow_csv", lambda: None)
+        exact = outcome(runner.data.load_dataset, path, **options)
+    assert fast == exact
+    return fast, fast_blocks
+
+
+def _mixed_file(rng: np.random.Generator, rows: int, end: str, bom: bool,
+                bad_lines: Sequence[int] = ()) -> bytes:
+    """Quote-free rows of four columns: short states, padded ones, missing spellings
+    (``NA``, empty, ``null``, ``?``), numbers that pandas would merge (``01``/``1``),
+    a byte-order mark opening a value; ``bad_lines`` (file lines) get three fields."""
+    words = np.array(["p", "q", " r ", "01", "1", "1.0", "NA", "", "null", "?", "\ufeffs",
+                      "True", "é"])
+    cells = rng.choice(words, (rows, 4))
+    lines = [",".join(row) for row in cells]
+    for line in bad_lines:
+        lines[line - 2] = "x,y,z"
+    text = "a,b,c,d" + end + end.join(lines) + end
+    return (("\ufeff" if bom else "") + text).encode("utf-8")
+
+
+@pytest.mark.parametrize("end", ["\n", "\r\n"])
+@pytest.mark.parametrize("missing", ["error", "drop-rows", "available-case"])
+def test_fast_and_exact_parsers_agree_on_a_generated_file(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch, end: str, missing: str) -> None:
+    path = tmp_path / "mixed.csv"
+    path.write_bytes(_mixed_file(np.random.default_rng(8), 4000, end, bom=True))
+    monkeypatch.setattr(runner.data, "READ_BLOCK", 4099)
+    monkeypatch.setattr(runner.data, "ARROW_CHUNK", 300)  # pyarrow splits each block
+    options: dict[str, Any] = {"missing": missing, "missing_values": ["NA", "", "?"],
+                               "declared_states": {"d": ["p", "q", "r", "01", "1", "1.0",
+                                                         "null", "\ufeffs", "True", "é"]}}
+    result, fast_blocks = both_parsers(path, monkeypatch, **options)
+    assert fast_blocks > 10  # the fast path read the file, block by block
+    if missing != "error":
+        assert result[0] == "ok"
+        assert result[2] == runner.data.file_sha256(path)
+        assert "NA" not in result[4][0] and "null" in result[4][0]
+        assert "\ufeffs" in result[4][1]  # a mark opening a value is kept, in every block
+
+
+def test_fast_and_exact_parsers_agree_on_bad_rows(tmp_path: Path,
+                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    path = tmp_path / "bad.csv"
+    bad = [2500, 2501, 2600, 3000, 3100, 3200, 3999]
+    path.write_bytes(_mixed_file(np.random.default_rng(9), 4000, "\r\n", bom=False,
+                                 bad_lines=bad))
+    monkeypatch.setattr(runner.data, "READ_BLOCK", 8192)
+    result, fast_blocks = both_parsers(path, monkeypatch, missing="drop-rows")
+    assert fast_blocks >= 2  # the blocks before the first bad line
+    assert result[0] == "error"
+    messages = [p[3] for p in result[1]]
+    assert messages[:5] == [f"line {n} has 3 fields, but the header has 4 fields"
+                            for n in bad[:5]]
+    assert messages[5] == "and 2 more lines with a different number of fields than the header (4)"
+
+
+PLAIN_FIELD = st.lists(st.sampled_from([*"ab1 0.é\t", "NA", "\ufeff", "True", "\r"]),
+                       max_size=4).map("".join)
+
+
+@st.composite
+def quote_free_files(draw: st.DrawFn) -> bytes:
+    """Files the fast path reads: no quote and no lone CR (a CR drawn in a value is
+    dropped), some lines with a wrong field count or blank."""
+    width = draw(st.integers(1, 4))
+    rows = draw(st.lists(st.lists(PLAIN_FIELD, min_size=max(0, width - 1),
+                                  max_size=width + 1), min_size=1, max_size=30))
+    end = draw(st.sampled_from(["\n", "\r\n"]))
+    lines = [",".join(row).replace("\r", "") for row in rows]
+    text = ",".join(f"c{j}" for j in range(width)) + end + "".join(line + end
+                                                                   for line in lines)
+    return (("\ufeff" if draw(st.booleans()) else "") + text).encode("utf-8")
+
+
+@settings(max_examples=int(os.environ.get("H8_EXAMPLES", "300")), deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(data=quote_free_files(), missing=st.sampled_from(["error", "drop-rows"]),
+       size=st.sampled_from([5, 16, 1 << 20]),
+       spellings=st.sampled_from([None, ["NA"], ["a", ""]]))
+def test_fast_and_exact_parsers_agree_on_random_files(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch, data: bytes, missing: str,
+        size: int, spellings: list[str] | None) -> None:
+    monkeypatch.setattr(runner.data, "READ_BLOCK", size)
+    path = tmp_path / "random.csv"
+    path.write_bytes(data)
+    both_parsers(path, monkeypatch, missing=missing, max_states=6, missing_values=spellings)
+
+
+def test_without_pyarrow_the_exact_path_reads(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setitem(sys.modules, "pyarrow.csv", None)  # an import of it fails
+    assert runner.data._arrow_csv() is None
 
 
 # --------------------------------------------------------------------------- files that are not
