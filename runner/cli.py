@@ -16,51 +16,21 @@ import json
 import sys
 import traceback
 from collections.abc import Sequence
-from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from runner import __version__, compare
-from runner.api import hold_against_baseline
-from runner.batch import FAILED, LEARNED, UP_TO_DATE, SpecOutcome, learn_planned, plan_specs
-from runner.compare.rescore import rescore
+# Only what the parser needs is imported here: each command imports its modules when it
+# runs, so `dagmill --version` and argument errors never load the pipeline (numpy, pandas,
+# networkx, the record models); tests/test_startup.py holds this.
+from runner import __version__
 from runner.engines import ENGINE_ENV, InProcess, choose_engine, open_engine
-from runner.environment import environment_changes, environment_sentence
 from runner.errors import EnvironmentFault, InputError, Problem
-from runner.export import FORMATS, export
-from runner.pipeline import RunResult, run_spec, validate
-from runner.present.text import (
-    baseline_changes,
-    check_table,
-    compare_lines,
-    history_table,
-    overview_table,
-    run_table,
-    summary_lines,
-    variation_compare_lines,
-    variation_lines,
-    variation_run_lines,
-    variation_table,
-)
-from runner.progress import Reporter
-from runner.project import DEFAULT_SPECS, SPECS_ENV, project_board, spec_arguments, specs_folder
-from runner.record import baseline_json_schema, record_json_schema
-from runner.spec import load_spec, spec_json_schema
-from runner.store import (
-    all_runs,
-    atomic_write_text,
-    find_variation,
-    list_runs,
-    read_baseline,
-    read_check_outcome,
-    read_model,
-    read_run,
-    read_variation,
-    resolve_run,
-    results_root,
-    variations_of_run,
-    write_baseline,
-)
+from runner.export import FORMATS
+from runner.project import DEFAULT_SPECS, SPECS_ENV
+
+if TYPE_CHECKING:
+    from runner.batch import SpecOutcome
+    from runner.pipeline import RunResult
 
 EXIT_CODES = """exit codes:
   0  success
@@ -220,6 +190,8 @@ def _warn(problems: Sequence[Problem]) -> None:
 
 
 def _cmd_validate(args: argparse.Namespace) -> int:
+    from runner.pipeline import validate
+
     report: list[dict[str, Any]] = []
     failed = False
     for spec in args.specs:
@@ -243,6 +215,10 @@ def _learn_specs(args: argparse.Namespace, root: Path,
     """``run``/``check``: the SPEC arguments as spec files (none: the project's specs),
     all prepared before any is learned, the up-to-date project specs skipped unless
     ``--force``; the engine is opened only when there is something to learn."""
+    from runner.batch import learn_planned, plan_specs
+    from runner.progress import Reporter
+    from runner.project import spec_arguments
+
     refs = spec_arguments(args.specs)
     if args.data is not None and len(refs) > 1:
         raise InputError(Problem("command line", "--data goes with a single spec", key="--data"))
@@ -262,6 +238,8 @@ def _learn_specs(args: argparse.Namespace, root: Path,
 def _outcome_lines(outcomes: Sequence[SpecOutcome], up_to_date: bool = True) -> list[str]:
     """The lines of the specs that were not learned (up to date, unless ``up_to_date`` is
     false; failed) and, for several specs, the count of each."""
+    from runner.batch import FAILED, LEARNED, UP_TO_DATE
+
     lines = []
     for o in outcomes:
         if o.status == UP_TO_DATE and up_to_date:
@@ -279,6 +257,8 @@ def _outcome_lines(outcomes: Sequence[SpecOutcome], up_to_date: bool = True) -> 
 
 def _failed(outcomes: Sequence[SpecOutcome]) -> bool:
     """Print the problems of the specs that failed while learning; whether any did."""
+    from runner.batch import FAILED
+
     problems = [p for o in outcomes if o.status == FAILED for p in o.problems]
     for problem in problems:
         print(f"error: {problem.format()}", file=sys.stderr)
@@ -286,6 +266,10 @@ def _failed(outcomes: Sequence[SpecOutcome]) -> bool:
 
 
 def _cmd_run(args: argparse.Namespace) -> int:
+    from runner.batch import LEARNED
+    from runner.present.text import run_table, variation_run_lines
+    from runner.store import read_variation, results_root
+
     root = results_root(args.results)
     outcomes = _learn_specs(args, root)
     out, mismatch, shown = [], [], []
@@ -329,6 +313,8 @@ def _cmd_run(args: argparse.Namespace) -> int:
 def _not_reproduced(result: RunResult, root: Path) -> str:
     """The message of a rerun that differs from its twin: what differs, whether the
     numeric environment does (and how), and the compare command."""
+    from runner.environment import environment_changes, environment_sentence
+
     assert result.twin is not None
     twin, new = result.twin["run_id"], result.run_id
     env = environment_changes(result.twin, result.record)
@@ -342,6 +328,8 @@ def _not_reproduced(result: RunResult, root: Path) -> str:
 def _variation_ref(root: Path, ref: str) -> Path | None:
     """The variation summary ``ref`` names (its id or a unique prefix that names no
     run), or None: then ``ref`` is a run."""
+    from runner.store import all_runs, find_variation
+
     summary = find_variation(root, ref) if not Path(ref).is_dir() else None
     if summary is not None and (summary.stem == ref or not any(
             p.name.startswith(ref) for p in all_runs(root))):
@@ -351,6 +339,9 @@ def _variation_ref(root: Path, ref: str) -> Path | None:
 
 def _cmd_show(args: argparse.Namespace) -> int:
     """``show RUN``; RUN may also be a variation summary's id (or a unique prefix)."""
+    from runner.present.text import summary_lines, variation_lines, variation_table
+    from runner.store import read_run, read_variation, resolve_run, results_root, variations_of_run
+
     root = results_root(args.results)
     summary = _variation_ref(root, args.run)
     if summary is not None:
@@ -369,6 +360,10 @@ def _cmd_show(args: argparse.Namespace) -> int:
 
 
 def _cmd_compare(args: argparse.Namespace) -> int:
+    from runner import compare
+    from runner.present.text import compare_lines
+    from runner.store import read_run, resolve_run, results_root
+
     root = results_root(args.results)
     summaries = [_variation_ref(root, ref) for ref in (args.run_a, args.run_b)]
     if any(s is not None for s in summaries):
@@ -380,6 +375,8 @@ def _cmd_compare(args: argparse.Namespace) -> int:
     rescored: dict[str, Any] | None = None
     if compare.needs_rescore(a, b) or (args.data is not None
                                        and not compare.score_delta(a, b)["comparable"]):
+        from runner.compare.rescore import rescore  # the pipeline: only to rescore
+
         try:
             rescored = {
                 "a_under_b": rescore(a, b["score"]["name"], b["score"].get("ess"), args.data,
@@ -403,6 +400,8 @@ def _compare_variations(args: argparse.Namespace, paths: Sequence[Path | None]) 
     """``compare`` of two variation summaries: the change of each edge's share and of
     the stable core."""
     from runner.compare.variations import compare_variations
+    from runner.present.text import variation_compare_lines
+    from runner.store import read_variation
 
     if any(p is None for p in paths):
         raise InputError(Problem("command line", "compare takes two runs or two variation "
@@ -423,6 +422,11 @@ def _compare_variations(args: argparse.Namespace, paths: Sequence[Path | None]) 
 
 
 def _cmd_pin(args: argparse.Namespace) -> int:
+    from datetime import UTC, datetime
+
+    from runner.present.text import baseline_changes
+    from runner.store import read_run, resolve_run, results_root, write_baseline
+
     root = results_root(args.results)
     folder = resolve_run(root, args.run)
     record = read_run(folder)
@@ -441,6 +445,9 @@ def _cmd_pin(args: argparse.Namespace) -> int:
 
 def _cmd_check(args: argparse.Namespace) -> int:
     """``check``; bad input (exit 2) still writes ``--junit FILE``, with an error case."""
+    from runner import compare
+    from runner.store import atomic_write_text
+
     try:
         return _check(args)
     except InputError as exc:
@@ -454,6 +461,8 @@ def _cmd_check(args: argparse.Namespace) -> int:
 def _junit_names(specs: Sequence[str]) -> list[str]:
     """The names of the JUnit error case: the spec files' stems (none when the SPEC
     arguments cannot even be listed)."""
+    from runner.project import spec_arguments
+
     try:
         return [Path(ref.path).stem for ref in spec_arguments(specs)]
     except InputError:
@@ -463,6 +472,12 @@ def _junit_names(specs: Sequence[str]) -> list[str]:
 def _check(args: argparse.Namespace) -> int:
     """``check``: an up-to-date project spec is not learned again: its latest stored run
     is held against the baseline instead, and no new ``check.json`` is written."""
+    from runner import compare
+    from runner.api import hold_against_baseline
+    from runner.batch import UP_TO_DATE
+    from runner.present.text import check_table
+    from runner.store import atomic_write_text, results_root
+
     root = results_root(args.results)
     reports, seconds, texts = [], {}, []
     outcomes = _learn_specs(args, root, reuse_bins=True, vary=False)  # the spec's own settings
@@ -509,6 +524,10 @@ def _spec_ok(outcome: SpecOutcome, reports: Sequence[dict[str, Any]]) -> bool | 
 def _cmd_overview(args: argparse.Namespace) -> int:
     """``overview``: one row per spec of the project; exit 0 whatever the rows say (a spec
     that does not validate is a row, not an error)."""
+    from runner.present.text import overview_table
+    from runner.project import project_board, specs_folder
+    from runner.store import atomic_write_text, results_root
+
     root = results_root(args.results)
     board = project_board(specs_folder(args.folder), root).as_dict()
     if args.html is not None:
@@ -525,6 +544,8 @@ def _cmd_overview(args: argparse.Namespace) -> int:
 
 
 def _spec_name(ref: str) -> str:
+    from runner.spec import load_spec
+
     path = Path(ref)
     if path.is_file():
         return load_spec(path).name
@@ -532,6 +553,10 @@ def _spec_name(ref: str) -> str:
 
 
 def _cmd_history(args: argparse.Namespace) -> int:
+    from runner import compare
+    from runner.present.text import history_table
+    from runner.store import list_runs, read_baseline, read_check_outcome, read_run, results_root
+
     root = results_root(args.results)
     name = _spec_name(args.spec)
     folders = list_runs(root, name)
@@ -570,6 +595,9 @@ def _out_path(option: str) -> Path:
 
 
 def _cmd_export(args: argparse.Namespace) -> int:
+    from runner.export import export
+    from runner.store import atomic_write_text, read_model, read_run, resolve_run, results_root
+
     folder = resolve_run(results_root(args.results), args.run)
     record = read_run(folder)
     text = export(record, args.format, read_model(folder, record))
@@ -585,6 +613,7 @@ def _cmd_export(args: argparse.Namespace) -> int:
 def _write_report(root: Path, ref: str, other_ref: str | None, out: str | None,
                   show_forbidden: bool = False) -> Path:
     from runner.present.report import default_report_path, render_report
+    from runner.store import atomic_write_text, read_model, read_run, resolve_run
 
     folder = resolve_run(root, ref)
     record = read_run(folder)
@@ -597,6 +626,7 @@ def _write_report(root: Path, ref: str, other_ref: str | None, out: str | None,
 
 def _write_variation_report(root: Path, summary_path: Path, out: str | None) -> Path:
     from runner.present.report import default_variation_report_path, render_variation_report
+    from runner.store import atomic_write_text, read_run, read_variation, resolve_run
 
     summary = read_variation(summary_path)
     first = summary["combinations"][0]["run_id"]
@@ -607,6 +637,8 @@ def _write_variation_report(root: Path, summary_path: Path, out: str | None) -> 
 
 
 def _cmd_report(args: argparse.Namespace) -> int:
+    from runner.store import results_root
+
     root = results_root(args.results)
     summary = _variation_ref(root, args.run)
     if summary is not None:
@@ -622,6 +654,9 @@ def _cmd_report(args: argparse.Namespace) -> int:
 
 
 def _cmd_schema(args: argparse.Namespace) -> int:
+    from runner.record import baseline_json_schema, record_json_schema
+    from runner.spec import spec_json_schema
+
     schema = (record_json_schema() if args.record else
               baseline_json_schema() if args.baseline else spec_json_schema())
     print(json.dumps(schema, indent=2, sort_keys=True))
@@ -630,6 +665,8 @@ def _cmd_schema(args: argparse.Namespace) -> int:
 
 def _cmd_demo(args: argparse.Namespace) -> int:
     from runner.demo import write_demo
+    from runner.pipeline import run_spec
+    from runner.present.text import summary_lines
 
     target = Path(args.dir)
     spec_path = write_demo(target)
@@ -652,6 +689,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 def _cmd_verify(args: argparse.Namespace) -> int:
     from runner.audit import stored_specs, verify_spec
     from runner.signing import load_public_key
+    from runner.store import results_root
 
     root = results_root(args.results)
     key = None if args.public_key is None else load_public_key(args.public_key)

@@ -25,9 +25,6 @@ does not answer within :data:`CONNECT_SECONDS`.
 
 from __future__ import annotations
 
-import concurrent.futures as cf
-import ctypes
-import multiprocessing
 import os
 import re
 import signal
@@ -183,6 +180,8 @@ def die_with_parent(parent: int) -> None:
     kernel's parent-death signal (prctl PR_SET_PDEATHSIG, SIGKILL); everywhere a daemon
     thread that watches the parent's pid and exits the process when it is gone."""
     if sys.platform.startswith("linux"):
+        import ctypes
+
         try:
             libc = ctypes.CDLL(None, use_errno=True)
             libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
@@ -224,6 +223,9 @@ class LocalPool(Engine):
             progress: Progress | None = None) -> list[R]:
         if self.workers <= 1 or len(items) <= 1:
             return InProcess().map(fn, shared, items, progress)
+        import concurrent.futures as cf  # here: the command's parser imports this module
+        import multiprocessing
+
         method = self.start_method
         if method is None:
             single = threading.active_count() == 1

@@ -16,16 +16,17 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
-import networkx
 import numpy as np
-import pandas
-import pydantic
 
 
 def environment() -> dict[str, Any]:
     """The record's ``environment``: library versions, the platform, and the numeric
     environment (:func:`numeric_environment`). Informational: none of it enters the input
     hash or the identity of two runs."""
+    import networkx  # here, not at import: comparing records and the command stay light
+    import pandas
+    import pydantic
+
     return {
         "python": platform.python_version(),
         "numpy": np.__version__,

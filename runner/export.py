@@ -12,11 +12,10 @@ from __future__ import annotations
 
 import io
 import json
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import networkx as nx
-
-from runner.bootstrap import edge_confidence
+if TYPE_CHECKING:  # networkx and numpy are imported when a graph is built: the command's
+    import networkx as nx  # parser reads FORMATS from here without loading them
 
 FORMATS = ("graphml", "dot", "json")
 
@@ -28,6 +27,10 @@ def learned_graph(record: dict[str, Any]) -> nx.DiGraph:
     ``tier_name`` (only when the spec names its tiers), ``kind`` and ``states`` (joined by
     ``|``). Edge attributes: ``required`` and, with a bootstrap block, ``confidence``.
     """
+    import networkx as nx
+
+    from runner.bootstrap import edge_confidence
+
     spec = record.get("spec", {})
     tier_of: dict[str, int] = {}
     for number, tier in enumerate(spec.get("tiers", []), start=1):
@@ -54,6 +57,8 @@ def learned_graph(record: dict[str, Any]) -> nx.DiGraph:
 
 def to_graphml(record: dict[str, Any], model: dict[str, Any] | None = None) -> str:
     """GraphML text (the XML graph standard), written by networkx."""
+    import networkx as nx
+
     buffer = io.BytesIO()
     nx.write_graphml(learned_graph(record), buffer, encoding="utf-8", prettyprint=True)
     return buffer.getvalue().decode("utf-8")

@@ -44,11 +44,10 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from runner.data import Dataset
 from runner.scores.available import present_rows
 from runner.scores.conditional_gaussian import ConfigurationFit, MixedData, continuous_fits
 from runner.scores.counts import COMPACT_ABOVE, configuration_codes
@@ -60,6 +59,9 @@ from runner.scores.gaussian import (
     linear_gaussian_parameters,
     statistics_of,
 )
+
+if TYPE_CHECKING:  # the reader (and pandas) is not loaded by reading a stored run
+    from runner.data import Dataset
 
 MODEL_FORMAT = "dagmill-model"
 MODEL_VERSION = 1

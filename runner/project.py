@@ -19,30 +19,16 @@ import os
 from collections.abc import Sequence
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Any
-
-import yaml
+from typing import TYPE_CHECKING, Any
 
 from runner.codeversion import code_version
 from runner.errors import InputError, Problem
-from runner.pipeline import (
-    Prepared,
-    prepare,
-    prepare_loaded,
-    prepared_input_sha256,
-    search_refusal,
-)
-from runner.spec import Spec, spec_sha256
-from runner.store import (
-    PREVIOUS_KEY,
-    RECORD_HASH_KEY,
-    current_variation,
-    list_runs,
-    raw_document,
-    read_baseline,
-    read_check_outcome,
-    read_run,
-)
+
+# The pipeline, the spec models and the store are imported where they are used: the
+# command's parser reads SPECS_ENV and DEFAULT_SPECS from here without loading them.
+if TYPE_CHECKING:
+    from runner.pipeline import Prepared
+    from runner.spec import Spec
 
 #: The variable naming the project's spec folder (default ``specs``).
 SPECS_ENV = "DAGMILL_SPECS"
@@ -142,6 +128,8 @@ class LatestRun:
 
 def _raw_link(folder: Path) -> tuple[str | None, str | None]:
     """A run's ``(record_sha256, previous_record_sha256)`` as stored (not checked)."""
+    from runner.store import PREVIOUS_KEY, RECORD_HASH_KEY, raw_document
+
     doc = raw_document(folder / "run.json")
     if doc is None:
         return None, None
@@ -155,6 +143,8 @@ def ordered_runs(results: Path, name: str) -> list[Path]:
     within the same second by their place in the chain (each record names the record
     hash of the run stored before it), as the run ids' hash suffixes do not sort by
     time."""
+    from runner.store import list_runs
+
     folders = list_runs(results, name)
     links = {folder: _raw_link(folder) for folder in folders}
     by_hash = {own: folder for folder, (own, _) in links.items() if own is not None}
@@ -173,6 +163,8 @@ def ordered_runs(results: Path, name: str) -> list[Path]:
 
 def latest_run(results: Path, name: str) -> LatestRun | None:
     """The spec's latest stored run (:func:`ordered_runs`), or None without runs."""
+    from runner.store import read_run
+
     folders = ordered_runs(results, name)
     if not folders:
         return None
@@ -187,6 +179,8 @@ def staleness(record: dict[str, Any], spec: Spec, data_sha256: str, version: str
               inputs: str) -> list[str]:
     """Why a stored run does not match the inputs a learn would have now (empty when its
     input hash is ``inputs``): spec, data (hash prefixes old -> new), code, bin edges."""
+    from runner.spec import spec_sha256
+
     if record.get("input_sha256") == inputs:
         return []
     reasons = []
@@ -218,6 +212,8 @@ class Freshness:
 def freshness(prepared: Prepared, results: Path, seed: int | None = None) -> Freshness:
     """The prepared spec (with the ``seed`` override) against its latest run in
     ``results``: up to date when that run's input hash is the one a learn would record."""
+    from runner.pipeline import prepared_input_sha256
+
     if prepared.spec.combinations:
         return _variation_freshness(prepared, results, seed)
     inputs = prepared_input_sha256(prepared, seed)
@@ -234,6 +230,9 @@ def freshness(prepared: Prepared, results: Path, seed: int | None = None) -> Fre
 def _variation_freshness(prepared: Prepared, results: Path, seed: int | None) -> Freshness:
     """A spec with ``vary`` is up to date when its latest variation summary lists the
     input hashes its combinations would get now (``input_sha256``: the hash of those)."""
+    from runner.pipeline import prepare_loaded, prepared_input_sha256
+    from runner.store import current_variation
+
     hashes = [prepared_input_sha256(prepare_loaded(c.spec, prepared.spec_display), seed)
               for c in prepared.spec.combinations]
     inputs = hashlib.sha256("\n".join(hashes).encode()).hexdigest()
@@ -332,6 +331,8 @@ def _run_info(record: dict[str, Any], by: str) -> RunInfo:
 
 
 def _baseline_info(results: Path, name: str) -> BaselineInfo:
+    from runner.store import read_baseline
+
     try:
         doc = read_baseline(results, name)
     except InputError as exc:
@@ -342,6 +343,8 @@ def _baseline_info(results: Path, name: str) -> BaselineInfo:
 
 
 def _last_check(results: Path, name: str) -> tuple[CheckInfo | None, list[str]]:
+    from runner.store import read_check_outcome
+
     notes: list[str] = []
     for folder in reversed(ordered_runs(results, name)):
         try:
@@ -358,6 +361,10 @@ def _last_check(results: Path, name: str) -> tuple[CheckInfo | None, list[str]]:
 def _name_of(path: Path, exc: InputError) -> str | None:
     """A spec's name even when it does not validate: the partial spec's, else the raw
     YAML's ``name`` when it is text."""
+    import yaml
+
+    from runner.spec import Spec
+
     if isinstance(exc.partial_spec, Spec) and isinstance(exc.partial_spec.name, str):
         return exc.partial_spec.name
     try:
@@ -370,6 +377,8 @@ def _name_of(path: Path, exc: InputError) -> str | None:
 
 def _spec_state(path: Path, results: Path) -> tuple[str | None, Freshness | None, str | None]:
     """(name, freshness, first problem): freshness None when the spec does not validate."""
+    from runner.pipeline import prepare, search_refusal
+
     try:
         prepared = prepare(path)
     except InputError as exc:

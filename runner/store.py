@@ -44,15 +44,11 @@ from typing import Any
 
 from runner.errors import InputError, Problem
 from runner.graph import graph_sha256
-from runner.record import (
-    FORMAT_VERSION,
-    check_baseline,
-    check_outcome,
-    check_record,
-    check_variation,
-    format_version,
-)
 from runner.signing import Signer, signer_from_environment
+
+# runner.record (the pydantic models of the documents) is imported by the functions that
+# check a document: `dagmill validate` reaches this module through the pipeline and never
+# reads or writes one.
 
 try:
     import fcntl
@@ -337,6 +333,8 @@ def write_run(root: Path, record: dict[str, Any], trace: str,
 def _land(runs: Path, staging: Path, record: dict[str, Any], trace: str,
           model: dict[str, Any] | None, signer: Signer | None) -> tuple[str, Path]:
     """Seal the record into ``staging`` and rename it into place under a free run id."""
+    from runner.record import check_record
+
     previous = chain_head(runs)
     base_id = record["run_id"]
     for attempt in range(1, 1000):
@@ -379,6 +377,8 @@ def read_run(folder: Path) -> dict[str, Any]:
     """Read a run record and check it against its hashes: the graph's, the consensus's, the
     model file's, the whole record's and the trace's (a hand edit is refused). Records
     from before a hash existed are read without that check."""
+    from runner.record import check_record
+
     path = folder / "run.json"
     record = _read_document(path, "run record", missing="run record is missing")
     check_record(record, str(path))
@@ -489,6 +489,8 @@ def baseline_from_record(record: dict[str, Any], pinned_utc: str) -> dict[str, A
     """The baseline document of a run (unsealed): its id and hashes, score, edges and data
     columns (the columns let ``check`` report state changes even when the run folder is
     gone), and the run's own seal."""
+    from runner.record import FORMAT_VERSION
+
     score = record["score"]
     data = record["data"]
     return {
@@ -543,6 +545,8 @@ def read_baseline(root: Path, spec_name: str) -> dict[str, Any] | None:
     exactly this baseline (so an edited baseline is refused even with a recomputed seal).
     Older baselines are checked against their graph hash only. Raises InputError naming
     the file for anything that does not hold."""
+    from runner.record import check_baseline, format_version
+
     path = baseline_path(root, spec_name)
     doc = _read_document(path, "baseline")
     if doc is None:
@@ -602,6 +606,8 @@ def write_baseline(root: Path, record: dict[str, Any], pinned_utc: str,
     ``signer``, default the key ``$DAGMILL_SIGNING_KEY`` names, if any); return the new
     baseline, the one it replaced (None if none; an unreadable old one is replaced too)
     and the path."""
+    from runner.record import check_baseline
+
     if RECORD_HASH_KEY not in record:
         raise InputError(Problem(record.get("spec_path") or record["spec_name"],
                                  f"run {record.get('run_id')} has no record_sha256 (a legacy "
@@ -638,6 +644,8 @@ def write_check_outcome(folder: Path, record: dict[str, Any], baseline: dict[str
     """Write ``check.json`` (sealed, and signed with a signer: default the key
     ``$DAGMILL_SIGNING_KEY`` names) into the run folder of a run that ``check`` learned:
     which baseline it was held against and what the gate said. Returns its path."""
+    from runner.record import FORMAT_VERSION, check_outcome
+
     if signer is None:
         signer = signer_from_environment()
     stored = read_run(folder)
@@ -665,6 +673,8 @@ def read_check_outcome(folder: Path) -> dict[str, Any] | None:
     """The run's ``check.json``, or None when the run was not learned by ``check``;
     refused (InputError naming the file) when it does not fit, was edited, or belongs to
     another run."""
+    from runner.record import check_outcome
+
     path = folder / CHECK_FILE
     doc = _read_document(path, "check outcome")
     if doc is None:
@@ -700,6 +710,8 @@ def write_variation(root: Path, doc: dict[str, Any], signer: Signer | None = Non
     ``$DAGMILL_SIGNING_KEY`` names) as ``<root>/<spec>/variations/<summary id>.json``;
     an id already taken gets ``-2``, ``-3``, ... (never overwritten). Sets
     ``summary_id`` and the seal in ``doc``; returns the path."""
+    from runner.record import check_variation
+
     if signer is None:
         signer = signer_from_environment()
     folder = root / doc["spec_name"] / VARIATIONS_FOLDER
@@ -721,6 +733,8 @@ def write_variation(root: Path, doc: dict[str, Any], signer: Signer | None = Non
 def read_variation(path: Path) -> dict[str, Any]:
     """A variation summary, checked against its model and its seal (InputError naming
     the file when it does not fit or was edited)."""
+    from runner.record import check_variation
+
     doc = _read_document(path, "variation summary", missing="variation summary is missing")
     check_variation(doc, str(path))
     if variation_sha256(doc) != doc[VARIATION_HASH_KEY]:

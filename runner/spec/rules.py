@@ -16,6 +16,7 @@ import difflib
 import math
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
+from graphlib import CycleError, TopologicalSorter
 from typing import Any, get_args, get_origin
 
 from pydantic import BaseModel
@@ -334,9 +335,24 @@ def _required_vs_forbidden(spec: Spec, where: Where) -> list[Problem]:
     ]
 
 
+def _acyclic(edges: Sequence[Sequence[str]]) -> bool:
+    """Whether the edges form no cycle (a self-loop counts as one): the standard
+    library's topological sorter, so a spec without a cycle never loads networkx."""
+    predecessors: dict[str, set[str]] = {}
+    for a, b in edges:
+        predecessors.setdefault(b, set()).add(a)
+    try:
+        TopologicalSorter(predecessors).prepare()
+    except CycleError:
+        return False
+    return True
+
+
 def _required_cycles(spec: Spec, where: Where) -> list[Problem]:
     """One problem per strongly connected component of the required edges (Tarjan 1972,
     by networkx): a shortest cycle through the component's first listed source."""
+    if _acyclic(spec.required):
+        return []  # the usual case, decided without loading networkx
     import networkx as nx  # here, not at import: reading a spec stays light
 
     graph: nx.DiGraph[str] = nx.DiGraph()
