@@ -245,8 +245,14 @@ def load_dataset(
     file = display_path if display_path is not None else str(path)
     problems: list[Problem] = []
     selection = _Selection(use, drop, key_prefix)
-    parquet = is_parquet(path)
-    if parquet:
+    parts = parquet_parts(Path(path), file, key_prefix)
+    parquet = parts is not None or is_parquet(path)
+    if parts is not None:
+        sha, table = _read_parquet_parts(parts, file, key_prefix, problems, expected_sha256,
+                                         selection)
+        names, position_problems = _column_names(table.header, file, "in the schema",
+                                                 line=None)
+    elif parquet:
         sha, table = _read_parquet(Path(path), file, key_prefix, problems, expected_sha256,
                                    selection)
         names, position_problems = _column_names(table.header, file, "in the schema",
@@ -371,6 +377,82 @@ def is_parquet(path: str | Path) -> bool:
     """Whether a data path is read as Parquet: its name ends in ``.parquet`` or ``.pq``
     (any case); every other file is read as CSV."""
     return Path(path).suffix.lower() in PARQUET_SUFFIXES
+
+
+def parquet_parts(path: Path, file: str, key_prefix: str = "dataset") -> list[Path] | None:
+    """The partitions of a data path that is a folder: its ``.parquet``/``.pq`` files
+    (not those of subfolders), sorted by name; None when ``path`` is not a folder. A
+    folder without one is bad input."""
+    if not path.is_dir():
+        return None
+    parts = sorted((p for p in path.iterdir() if is_parquet(p) and not p.name.startswith(".")),
+                   key=lambda p: p.name)
+    if not parts:
+        raise InputError(Problem(file, "is a folder without .parquet or .pq files; a data "
+                                 "folder holds the Parquet partitions of one table",
+                                 key=f"{key_prefix}.path"))
+    return parts
+
+
+def partitions_sha256(hashes: Sequence[str]) -> str:
+    """The sha256 of a partitioned table: of its partitions' sha256 hex digests, sorted,
+    each followed by a line end (so it depends on the partitions' bytes, not on their
+    names or order)."""
+    return hashlib.sha256("".join(f"{h}\n" for h in sorted(hashes)).encode()).hexdigest()
+
+
+def _read_parquet_parts(parts: Sequence[Path], file: str, key_prefix: str,
+                        problems: list[Problem], expected_sha256: str | None,
+                        selection: _Selection) -> tuple[str, _Table]:
+    """The partitions of a folder read one after another (:func:`_read_parquet`) as one
+    table, rows in the order of the sorted file names; its sha256 is
+    :func:`partitions_sha256`. Every partition must have the first one's columns."""
+    hashes: list[str] = []
+    header: list[str] | None = None
+    selected: list[int] = []
+    pieces: list[list[_Factorised]] = []
+    rows = 0
+    for part in parts:
+        sha, table = _read_parquet(part, f"{file}/{part.name}", key_prefix, problems, None,
+                                   selection)
+        if header is None:
+            header, selected = table.header, table.selected
+        elif table.header != header:
+            problems.append(Problem(f"{file}/{part.name}", "has other columns than "
+                                    f"{parts[0].name} ({', '.join(table.header)} against "
+                                    f"{', '.join(header)}); every partition must have the same "
+                                    "columns in the same order", key=f"{key_prefix}.path"))
+            raise InputError(problems)
+        hashes.append(sha)
+        pieces.append(table.columns)
+        rows += table.data_rows
+    assert header is not None
+    sha = partitions_sha256(hashes)
+    problems.extend(_pin_problems(sha, expected_sha256, file, key_prefix))
+    columns = [_joined_columns([piece[j] for piece in pieces]) for j in range(len(selected))]
+    return sha, _Table(header, columns, rows, lambda positions: positions + 1, selected)
+
+
+def _joined_columns(pieces: Sequence[_Factorised]) -> _Factorised:
+    """One column of several partitions: the distinct values in order of first
+    appearance and every row's position among them; a category order kept when every
+    partition has the same one."""
+    index: dict[Any, int] = {}
+    uniques: list[Any] = []
+    codes = []
+    for piece in pieces:
+        lookup = np.empty(len(piece.uniques), dtype=np.intp)
+        for i, value in enumerate(piece.uniques):
+            at = index.get(value)
+            if at is None:
+                at = index[value] = len(uniques)
+                uniques.append(value)
+            lookup[i] = at
+        codes.append(lookup[np.asarray(piece.raw_codes, dtype=np.intp)])
+    raw = np.concatenate(codes) if codes else np.zeros(0, dtype=np.intp)
+    orders = {piece.order for piece in pieces}
+    return _Factorised(raw.astype(np.uint16 if len(uniques) <= 1 << 16 else np.intp),
+                       uniques, orders.pop() if len(orders) == 1 else None)
 
 
 def _pyarrow(file: str, key: str) -> tuple[Any, Any]:
