@@ -388,8 +388,9 @@ def parquet_parts(path: Path, file: str, key_prefix: str = "dataset") -> list[Pa
     parts = sorted((p for p in path.iterdir() if is_parquet(p) and not p.name.startswith(".")),
                    key=lambda p: p.name)
     if not parts:
-        raise InputError(Problem(file, "is a folder without .parquet or .pq files; a data "
-                                 "folder holds the Parquet partitions of one table",
+        raise InputError(Problem(file, "is a folder, not a CSV file, and holds no .parquet or "
+                                 ".pq file (a data folder holds the Parquet partitions of "
+                                 "one table)",
                                  key=f"{key_prefix}.path"))
     return parts
 

@@ -78,7 +78,7 @@ def test_bad_folders_are_bad_input(case: tuple[Path, pd.DataFrame], tmp_path: Pa
     (tmp_path / "empty").mkdir()
     with pytest.raises(InputError) as caught:
         runner.learn(spec, tmp_path / "empty")
-    assert "without .parquet" in caught.value.problems[0].message
+    assert "holds no .parquet" in caught.value.problems[0].message
     parts = _partitioned(frame, tmp_path / "mixed", 1000)
     pq.write_table(pa.Table.from_pandas(frame[["b", "a", "c", "d"]].iloc[:10],
                                         preserve_index=False), parts[0].parent / "part-9.parquet")
