@@ -6,10 +6,13 @@ Usage::
     python -m benchmarks --quality [--networks asia,alarm] [--sample-seeds 13] ...
     python -m benchmarks --budget [--budget-columns 300] [--budget-label after] ...
     python -m benchmarks --scale [--scale-cases alarm-10k,pigs-5k-cap4,...] [--repeats 1]
+    python -m benchmarks --kernel [--kernel-before TREE] [--kernel-cases alarm-10k,...]
 
 ``--quality`` runs the search-quality suite (:mod:`benchmarks.quality`) instead of the
 speed suite and writes ``RESULTS-quality.md`` and ``RESULTS-quality.json``; ``--budget``
-the budget-keeping case on wide data (:mod:`benchmarks.budget`: ``RESULTS-budget.md``).
+the budget-keeping case on wide data (:mod:`benchmarks.budget`: ``RESULTS-budget.md``);
+``--kernel`` the counting kernel and the move engine (:mod:`benchmarks.kernel`:
+``RESULTS-kernel.md``).
 
 Data are sampled once per case with pgmpy's sampler and a fixed seed, cached as CSV
 under a temporary folder (never committed). Each case is timed ``--repeats`` times for
@@ -210,11 +213,8 @@ def machine_line() -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    from benchmarks import (  # they import this module: load them once it is complete
-        budget,
-        quality,
-        scale,
-    )
+    # they import this module: load them once it is complete
+    from benchmarks import budget, kernel, quality, scale
 
     parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__)
     parser.add_argument("--cases", default=DEFAULT_CASES)
@@ -228,9 +228,12 @@ def main(argv: list[str] | None = None) -> int:
                         help="run the budget-keeping case instead of the speed suite")
     parser.add_argument("--scale", action="store_true",
                         help="run the scale suite (wide networks, candidates, 1M rows)")
+    parser.add_argument("--kernel", action="store_true",
+                        help="time the counting kernel and the move engine instead")
     quality.add_arguments(parser)
     budget.add_arguments(parser)
     scale.add_arguments(parser)
+    kernel.add_arguments(parser)
     args = parser.parse_args(argv)
     Path(args.out).mkdir(parents=True, exist_ok=True)  # a fresh --out folder is made
     if args.quality:
@@ -239,6 +242,8 @@ def main(argv: list[str] | None = None) -> int:
         return budget.run(args)
     if args.scale:
         return scale.run(args)
+    if args.kernel:
+        return kernel.run(args)
     warnings.filterwarnings("ignore")
     rows = []
     for name in args.cases.split(","):

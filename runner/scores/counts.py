@@ -11,15 +11,30 @@ the number of parent configurations; when q * r is much larger than N the codes 
 compacted with ``numpy.unique`` first (O(N log N)) so memory stays O(N).
 
 :class:`CountScorer` binds a count-table score ``f(table, q, n_rows)`` to encoded data:
-the :class:`~runner.scores.protocol.Scorer` of the discrete scores.
+the :class:`~runner.scores.protocol.Scorer` of the discrete scores. It counts with the
+compiled kernel of :mod:`runner.scores.kernel` (numba: one pass over the rows, the same
+tables) when numba is installed and the family's dense table fits
+(:func:`dense_limit`), and with :func:`family_counts` otherwise. The environment
+variable ``DAGMILL_KERNEL`` chooses: ``numpy`` the numpy path always, ``numba`` the
+kernel or an error when numba is missing; unset, the numpy path until a scorer has
+counted :data:`AUTO_AFTER_ROWS` rows x families (or until the kernel is loaded in the
+process), then the kernel if numba imports (a small search never pays for importing
+numba). Either way the tables, and so every
+score, are the same bits.
 """
 
 from __future__ import annotations
 
+import importlib
+import os
+import sys
 from collections.abc import Callable, Sequence
+from functools import cache
+from types import ModuleType
 
 import numpy as np
 
+from runner.errors import EnvironmentFault
 from runner.scores.cache import CachedScorer, mask_members
 
 #: A score of one family from its count table: ``f(table, q, n_rows) -> float``.
@@ -29,6 +44,74 @@ CountFamilyScore = Callable[[np.ndarray, int, int], float]
 # occurring family codes are compacted with numpy.unique instead.
 DENSE_CELLS_PER_ROW = 4
 DENSE_CELLS_FLOOR = 1 << 16
+
+#: The environment variable that chooses the counting path (:data:`KERNELS`).
+KERNEL_VARIABLE = "DAGMILL_KERNEL"
+#: Its values: the compiled kernel, or the numpy path.
+KERNELS = ("numba", "numpy")
+#: The module of the compiled kernel, imported at a count (it imports numba).
+KERNEL_MODULE = "runner.scores.kernel"
+
+
+def dense_limit(n_rows: int) -> int:
+    """Most (configuration x child state) cells a family of ``n_rows`` rows is counted
+    in densely; above it the occurring codes are compacted with ``numpy.unique``."""
+    return max(DENSE_CELLS_PER_ROW * n_rows, DENSE_CELLS_FLOOR)
+
+
+#: Unset, the kernel is loaded once the numpy path has counted this many rows x
+#: families (about half a second of counting): importing numba and loading the compiled
+#: code takes about a second, more than a small search spends counting.
+AUTO_AFTER_ROWS = 100_000_000
+
+
+def kernel_choice() -> str:
+    """``DAGMILL_KERNEL``'s value: one of :data:`KERNELS`, or ``""`` when unset (the
+    kernel once a scorer has counted :data:`AUTO_AFTER_ROWS` rows, if numba imports).
+
+    Raises
+    ------
+    EnvironmentFault
+        It names no kernel.
+    """
+    choice = os.environ.get(KERNEL_VARIABLE, "").strip().lower()
+    if choice not in ("", *KERNELS):
+        raise EnvironmentFault(
+            f"{KERNEL_VARIABLE}={choice!r} names no counting kernel: use one of "
+            f"{', '.join(KERNELS)}, or leave it unset")
+    return choice
+
+
+def kernel_loaded() -> bool:
+    """Whether the compiled kernel is imported in this process already."""
+    return KERNEL_MODULE in sys.modules
+
+
+def counting_kernel(choice: str) -> ModuleType | None:
+    """The compiled counting kernel (:mod:`runner.scores.kernel`) for ``choice`` (a
+    value of :func:`kernel_choice`), or None for the numpy path; numba is imported here,
+    at a count, never when ``runner`` is imported.
+
+    Raises
+    ------
+    EnvironmentFault
+        ``choice`` is ``numba`` and numba does not import.
+    """
+    if choice == "numpy":
+        return None
+    return _kernel(choice)
+
+
+@cache
+def _kernel(choice: str) -> ModuleType | None:
+    try:
+        return importlib.import_module(KERNEL_MODULE)
+    except ImportError as exc:
+        if choice == "numba":
+            raise EnvironmentFault(
+                f"{KERNEL_VARIABLE}=numba but numba does not import ({exc}): install it "
+                f"(pip install 'numba>=0.60') or set {KERNEL_VARIABLE}=numpy") from exc
+        return None
 
 
 def code_dtype(cells: int) -> type[np.unsignedinteger]:
@@ -97,7 +180,7 @@ def family_counts(
     cells = bound * r
     dtype = code_dtype(cells)
     family_code = parent_code.astype(dtype, copy=False) * dtype(r) + codes[child]
-    if cells <= max(DENSE_CELLS_PER_ROW * n_rows, DENSE_CELLS_FLOOR):
+    if cells <= dense_limit(n_rows):
         dense = np.bincount(family_code, minlength=cells).reshape(bound, r)
         return dense[dense.any(axis=1)], q
     occurring, counts = np.unique(family_code, return_counts=True)
@@ -107,12 +190,22 @@ def family_counts(
     return table, q
 
 
+def configurations(arities: np.ndarray, variables: Sequence[int]) -> int:
+    """Number of joint states of ``variables``: the product of their arities (1 for none)."""
+    possible = 1
+    for v in variables:
+        possible *= int(arities[v])
+    return possible
+
+
 class CountScorer(CachedScorer):
     """Family scores of discrete data from their count tables, cached (see
     :class:`~runner.scores.cache.CachedScorer`).
 
     ``codes`` has shape (n_vars, n_rows) and ``arities`` one entry per variable;
-    ``function`` scores one family's count table (:func:`family_counts`).
+    ``function`` scores one family's count table (:func:`family_counts`). The compiled
+    kernel trusts every code to be below its variable's arity: it is checked once, when
+    the kernel is chosen, and data where it fails are counted by the numpy path.
     """
 
     def __init__(self, function: CountFamilyScore, codes: np.ndarray, arities: np.ndarray,
@@ -122,7 +215,88 @@ class CountScorer(CachedScorer):
         self.function = function
         self.codes = codes
         self.arities = arities
+        self._limit = dense_limit(int(n_rows))
+        self._arities = np.asarray(arities, dtype=np.int64)  # as the kernel takes them
+        self._dense: np.ndarray | None = None  # the kernel's scratch table, all zero
+        self._code = np.zeros(0, dtype=np.int64)
+        self._choice: str | None = None  # DAGMILL_KERNEL, read at the first count
+        self._settled = codes.dtype not in (np.uint8, np.uint16)
+        self._kernel_module: ModuleType | None = None
+        self._counted = 0  # rows x families counted by the numpy path
+
+    def _kernel(self) -> ModuleType | None:
+        """The counting kernel once chosen (None: the numpy path, for now or for good)."""
+        if self._settled:
+            return self._kernel_module
+        if self._choice is None:
+            self._choice = kernel_choice()
+        if self._choice == "numpy":
+            self._settled = True
+        elif (self._choice == "numba" or self._counted >= AUTO_AFTER_ROWS
+              or kernel_loaded()):  # loaded already: no cost left to avoid
+            if self._codes_in_range():
+                self._kernel_module = counting_kernel(self._choice)
+            self._settled = True
+        return self._kernel_module
+
+    def __getstate__(self) -> dict[str, object]:
+        """A copy for another process (a pool or cluster worker) chooses its counting
+        path again there: a module and the scratch buffers do not travel."""
+        state = dict(self.__dict__)
+        if state["_kernel_module"] is not None:
+            state.update(_kernel_module=None, _settled=False, _choice=None)
+        state.update(_dense=None, _code=np.zeros(0, dtype=np.int64))
+        return state
+
+    def _codes_in_range(self) -> bool:
+        """Whether every code is below its variable's arity (the kernel trusts it)."""
+        codes = self.codes
+        if codes.size == 0:
+            return True
+        return not bool((codes.max(axis=1) >= self._arities).any())
+
+    def _scratch(self) -> tuple[np.ndarray, np.ndarray]:
+        """The kernel's reused buffers: the dense table (all zero between counts) and a
+        configuration code per row."""
+        if self._dense is None:
+            self._dense = np.zeros(self._limit, dtype=np.int64)
+            self._code = np.zeros(self.n_rows, dtype=np.int64)
+        return self._dense, self._code
+
+    def counts(self, child: int, parents: Sequence[int]) -> tuple[np.ndarray, int]:
+        """The count table and ``q`` of ``child`` given the sorted ``parents``, as
+        :func:`family_counts` gives them (by the kernel when it applies)."""
+        kernel = self._kernel()
+        q = configurations(self.arities, parents)
+        if kernel is None or q * int(self.arities[child]) > self._limit:
+            self._counted += self.n_rows
+            return family_counts(self.codes, self.arities, child, parents)
+        return kernel.family_table(self.codes, self._arities, child, list(parents),
+                                   *self._scratch()), q
 
     def _compute(self, child: int, mask: int) -> float:
-        table, q = family_counts(self.codes, self.arities, child, mask_members(mask))
+        table, q = self.counts(child, mask_members(mask))
         return self.function(table, q, self.n_rows)
+
+    def _compute_column(self, child: int, mask: int, candidates: Sequence[int]) -> list[float]:
+        """The kernel counts every added parent from one configuration code of ``mask``;
+        removals and tables too large for the dense count go one by one."""
+        kernel = self._kernel()
+        if kernel is None:
+            return super()._compute_column(child, mask, candidates)
+        parents = list(mask_members(mask))
+        base = configurations(self.arities, parents) * int(self.arities[child])
+        added = [p for p in candidates
+                 if not mask >> p & 1 and base * int(self.arities[p]) <= self._limit]
+        tables = dict(zip(added, kernel.column_tables(
+            self.codes, self._arities, child, parents, added, *self._scratch()), strict=True)
+            ) if added else {}
+        out = []
+        for p in candidates:
+            table = tables.get(p)
+            if table is None:
+                out.append(self._compute(child, mask ^ (1 << p)))
+            else:
+                q = configurations(self.arities, parents) * int(self.arities[p])
+                out.append(self.function(table, q, self.n_rows))
+        return out

@@ -10,8 +10,10 @@ the counters for the record and the budget. :class:`~runner.scores.counts.CountS
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from typing import Protocol, runtime_checkable
+
+import numpy as np
 
 
 @runtime_checkable
@@ -41,6 +43,11 @@ class Scorer(Protocol):
 
     def family_by_mask(self, child: int, mask: int) -> float:
         """Score of ``child`` given the parents whose bits are set in ``mask``."""
+        ...
+
+    def column_scores(self, child: int, mask: int, candidates: Sequence[int]) -> np.ndarray:
+        """Scores of ``child`` given ``mask`` with each candidate's bit flipped, as
+        :meth:`family_by_mask` gives them one by one (the same cache and counters)."""
         ...
 
     def total(self, parent_sets: Iterable[Iterable[int]]) -> float:

@@ -10,17 +10,25 @@ i -> j touches only the family of j, and a reversal touches the families of i an
 (Heckerman, Geiger & Chickering 1995). The engine keeps a table ``toggle[i, j]``: the
 change of family j's score when i enters or leaves j's parent set. Column j depends
 only on j's parent set, so after a move only the columns of the children whose parent
-sets changed are recomputed (n - 1 family scores each, most of them cached).
+sets changed are recomputed: the present parents that may leave and the allowed ones
+that may enter (O(k) families when the allowed matrix holds k candidate parents per
+variable), scored together by :meth:`~runner.scores.protocol.Scorer.column_scores` (the
+count scorer builds the parent configuration code once for the whole column), with the
+cache and counters of one family at a time.
 
 Acyclicity. A reachability matrix ``reach[a, b]`` (a directed path a -> ... -> b of one
 or more edges) is kept up to date: adding i -> j makes a cycle exactly when
 ``reach[j, i]``; reversing i -> j makes one exactly when i reaches j by a path other
-than the edge itself. An addition updates the matrix by one outer product, O(n^2); a
-deletion recomputes it in topological order, O(n (n + e)) with vectorised rows.
+than the edge itself, that is when another child of i reaches j: checked for the edges
+only, in boolean arithmetic (O(e n), no floating-point product). An addition updates the
+matrix by one outer product, O(n^2); a deletion recomputes it in topological order,
+O(n (n + e)) with vectorised rows.
 
 Budget. Filling the first delta table scores n (n - 1) families, which on wide data
 takes far longer than a step. Given a budget, the fill checks it every few families
-(:class:`~runner.search.budget.FillCheck`); when it runs out, the engine keeps the start
+(:class:`~runner.search.budget.FillCheck`, consulted as if at every variable of a
+column, the candidates before each consultation scored first, so that it stops where and
+with the evaluations one family at a time would); when it runs out, the engine keeps the start
 graph with its family scores, leaves the unfilled deltas out and sets ``stopped`` to the
 stop reason: the searches then stop before choosing any move.
 
@@ -64,6 +72,16 @@ class Move:
     kind: str
     source: int
     target: int
+
+
+def _consultations(check: FillCheck | None, count: int) -> range:
+    """The positions among the next ``count`` calls of ``check`` at which it would look
+    at its budget (every ``check.every`` calls; none without a budget that can stop a
+    fill, or once it has stopped)."""
+    if check is None or check.stopped is not None or check.budget is None or (
+            check.budget.max_evaluations is None and check.budget.max_seconds is None):
+        return range(0)
+    return range((-check.calls) % check.every, count, check.every)
 
 
 class BoundEngine:
@@ -136,25 +154,47 @@ class MoveEngine(BoundEngine):
 
     # -- deltas ----------------------------------------------------------------------
     def _refresh_column(self, child: int, check: FillCheck | None = None) -> bool:
-        """Recompute family ``child`` and the toggle deltas of every candidate parent;
-        False (the column left as it was, the family score updated) when ``check`` says
-        the budget ran out."""
+        """Recompute family ``child`` and the toggle deltas of its candidate parents (the
+        present ones that may leave, and the allowed ones that may enter while the cap
+        leaves room), all scored in one column (:meth:`Scorer.column_scores`); False
+        (the column left as it was, the family score updated) when ``check`` says the
+        budget ran out.
+
+        The check is consulted as if at every variable other than the child, in order,
+        and the candidates before each consultation are scored first, so the fill stops
+        at the same place and with the same evaluations as one family at a time.
+        """
         scorer = self.scorer
-        mask = parent_mask(self.parents(child))
+        present = self.adjacency[:, child]
+        mask = parent_mask(np.flatnonzero(present).tolist())
         base = scorer.family_by_mask(child, mask)
         self.family[child] = base
+        movable = present & ~self.required[:, child]
+        if int(present.sum()) < self.cap:
+            movable |= self.allowed[:, child] & ~present
+        movable[child] = False
+        candidates = np.flatnonzero(movable)
         column = np.full(self.n, np.nan)
-        room = int(self.adjacency[:, child].sum()) < self.cap
-        for p in range(self.n):
-            if p == child:
-                continue
-            if check is not None and check(scorer.evaluations) is not None:
+        others = self.n - 1  # the variables the check is consulted at
+        done = 0  # candidates scored so far
+        for position in _consultations(check, others):
+            # the variable at that position, and the candidates before it
+            variable = position if position < child else position + 1
+            upto = int(np.searchsorted(candidates, variable))
+            if upto > done:
+                part = candidates[done:upto]
+                column[part] = scorer.column_scores(child, mask, part.tolist()) - base
+                done = upto
+            assert check is not None and check.budget is not None
+            check.stopped = check.budget.fill_exhausted(scorer.evaluations)
+            if check.stopped is not None:
+                check.calls += position + 1
                 return False
-            if self.adjacency[p, child]:
-                if not self.required[p, child]:
-                    column[p] = scorer.family_by_mask(child, mask & ~(1 << p)) - base
-            elif room and self.allowed[p, child]:
-                column[p] = scorer.family_by_mask(child, mask | (1 << p)) - base
+        if done < candidates.size:
+            part = candidates[done:]
+            column[part] = scorer.column_scores(child, mask, part.tolist()) - base
+        if check is not None:
+            check.calls += others
         self.toggle[:, child] = column
         return True
 
@@ -179,9 +219,13 @@ class MoveEngine(BoundEngine):
         room = a.sum(axis=0) < self.cap
         add = self.allowed & ~a & ~self.reach.T & room[None, :]
         delete = a & ~self.required
-        # i reaches j other than by the edge i -> j: some child c != j of i reaches j.
-        other_path = (a.astype(np.float32) @ self.reach.astype(np.float32)) > 0
-        reverse = delete & self.allowed.T & room[:, None] & ~other_path
+        reverse = delete & self.allowed.T & room[:, None]
+        sources, targets = np.nonzero(reverse)
+        if sources.size:
+            # i reaches j other than by the edge i -> j: some child c != j of i reaches j
+            # (reach[j, j] is false in a DAG), for the edges only, in boolean arithmetic
+            other_path = (a[sources] & self.reach[:, targets].T).any(axis=1)
+            reverse[sources[other_path], targets[other_path]] = False
         return add, delete, reverse
 
     def delta_tables(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
