@@ -36,6 +36,7 @@ import numpy as np
 
 from runner.errors import EnvironmentFault
 from runner.scores.cache import CachedScorer, mask_members
+from runner.scores.likelihood import column_form
 
 #: A score of one family from its count table: ``f(table, q, n_rows) -> float``.
 CountFamilyScore = Callable[[np.ndarray, int, int], float]
@@ -213,6 +214,7 @@ class CountScorer(CachedScorer):
         n_vars, n_rows = codes.shape
         super().__init__(int(n_vars), int(n_rows), cache_limit)
         self.function = function
+        self.column_function = column_form(function)
         self.codes = codes
         self.arities = arities
         self._limit = dense_limit(int(n_rows))
@@ -280,23 +282,27 @@ class CountScorer(CachedScorer):
 
     def _compute_column(self, child: int, mask: int, candidates: Sequence[int]) -> list[float]:
         """The kernel counts every added parent from one configuration code of ``mask``;
-        removals and tables too large for the dense count go one by one."""
+        removals and tables too large for the dense count are counted one by one. The
+        tables are then scored together when the score has a several-tables form
+        (:func:`runner.scores.likelihood.column_form`: the same bits as one by one)."""
         kernel = self._kernel()
-        if kernel is None:
-            return super()._compute_column(child, mask, candidates)
         parents = list(mask_members(mask))
-        base = configurations(self.arities, parents) * int(self.arities[child])
-        added = [p for p in candidates
-                 if not mask >> p & 1 and base * int(self.arities[p]) <= self._limit]
-        tables = dict(zip(added, kernel.column_tables(
-            self.codes, self._arities, child, parents, added, *self._scratch()), strict=True)
-            ) if added else {}
-        out = []
+        found: dict[int, tuple[np.ndarray, int]] = {}
+        if kernel is not None:
+            q = configurations(self.arities, parents)
+            base = q * int(self.arities[child])
+            added = [p for p in candidates
+                     if not mask >> p & 1 and base * int(self.arities[p]) <= self._limit]
+            if added:
+                tables = kernel.column_tables(self.codes, self._arities, child, parents,
+                                              added, *self._scratch())
+                for p, table in zip(added, tables, strict=True):
+                    found[p] = (table, q * int(self.arities[p]))
         for p in candidates:
-            table = tables.get(p)
-            if table is None:
-                out.append(self._compute(child, mask ^ (1 << p)))
-            else:
-                q = configurations(self.arities, parents) * int(self.arities[p])
-                out.append(self.function(table, q, self.n_rows))
-        return out
+            if p not in found:
+                found[p] = self.counts(child, mask_members(mask ^ (1 << p)))
+        pairs = [found[p] for p in candidates]
+        if self.column_function is not None:
+            return self.column_function([t for t, _ in pairs], [q for _, q in pairs],
+                                        self.n_rows)
+        return [self.function(table, q, self.n_rows) for table, q in pairs]

@@ -21,6 +21,8 @@ penalty is one float operation on those values.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
+
 import numpy as np
 
 from runner.scores.elementary import ln_scalar
@@ -55,3 +57,56 @@ def bic_family(table: np.ndarray, q: int, n_rows: int) -> float:
     """Family BIC: log-likelihood minus (ln N / 2) per free parameter (Schwarz 1978)."""
     return log_likelihood(table, n_rows) - 0.5 * ln_scalar(n_rows) * free_parameters(
         q, table.shape[1])
+
+
+def log_likelihoods(tables: Sequence[np.ndarray], n_rows: int) -> list[float]:
+    """:func:`log_likelihood` of several tables with the same number of columns (one
+    child's families), the same bits, in a few numpy calls for all of them (the exact
+    integer sums of :meth:`~runner.scores.tables.CountTable.segment_sums`)."""
+    if not tables:
+        return []
+    sizes = [t.shape[0] for t in tables]
+    if min(sizes) == 0 or len({t.shape[1] for t in tables}) != 1:
+        return [log_likelihood(t, n_rows) for t in tables]
+    stacked = np.concatenate(tables, axis=0)
+    rows = stacked.sum(axis=1)
+    top = int(rows.max())
+    starts = np.zeros(len(tables), dtype=np.intp)
+    np.cumsum(sizes[:-1], out=starts[1:])
+    xlogx = xlogx_table(n_rows)
+    cells = xlogx.segment_sums(stacked, starts, top)
+    margins = xlogx.segment_sums(rows, starts, top)
+    if cells is None or margins is None:
+        return [log_likelihood(t, n_rows) for t in tables]
+    return [to_float(c - m, xlogx.bits) for c, m in zip(cells.tolist(), margins.tolist(),
+                                                          strict=True)]
+
+
+def loglik_column(tables: Sequence[np.ndarray], qs: Sequence[int], n_rows: int) -> list[float]:
+    """:func:`loglik_family` of several tables of one child, the same bits."""
+    return log_likelihoods(tables, n_rows)
+
+
+def aic_column(tables: Sequence[np.ndarray], qs: Sequence[int], n_rows: int) -> list[float]:
+    """:func:`aic_family` of several tables of one child, the same bits."""
+    return [ll - free_parameters(q, t.shape[1])
+            for ll, q, t in zip(log_likelihoods(tables, n_rows), qs, tables, strict=True)]
+
+
+def bic_column(tables: Sequence[np.ndarray], qs: Sequence[int], n_rows: int) -> list[float]:
+    """:func:`bic_family` of several tables of one child, the same bits."""
+    per_parameter = 0.5 * ln_scalar(n_rows)  # (0.5 ln N) k, as bic_family rounds it
+    return [ll - per_parameter * free_parameters(q, t.shape[1])
+            for ll, q, t in zip(log_likelihoods(tables, n_rows), qs, tables, strict=True)]
+
+
+#: A family score of several count tables of one child at once: ``f(tables, qs, n_rows)``.
+CountColumnScore = Callable[[Sequence[np.ndarray], Sequence[int], int], list[float]]
+
+_COLUMN_FORMS: dict[Callable[[np.ndarray, int, int], float], CountColumnScore] = {
+    loglik_family: loglik_column, aic_family: aic_column, bic_family: bic_column}
+
+
+def column_form(function: Callable[[np.ndarray, int, int], float]) -> CountColumnScore | None:
+    """The several-tables form of a family score function (None when it has none)."""
+    return _COLUMN_FORMS.get(function)

@@ -124,6 +124,25 @@ class CountTable:
                 return self._sum_far(counts)
         return int(self._entries[counts].sum())
 
+    def segment_sums(self, counts: np.ndarray, starts: np.ndarray,
+                     top: int) -> np.ndarray | None:
+        """Exact sums of the entries of several tables at once: ``counts`` is their rows
+        stacked (a 2-D array, or 1-D for one count per row), ``starts`` the first row of
+        each table (ascending, each table at least one row), ``top`` the largest count.
+        The same integers :meth:`sum` gives table by table (int64 sums of the same
+        entries, each within the bound of one table); None when a count is above
+        ``DENSE_LIMIT`` (then :meth:`sum` must go table by table)."""
+        if top > DENSE_LIMIT:
+            return None
+        if top >= self._filled:
+            if top > self.n_rows:
+                raise ValueError(f"a count of {top} exceeds the {self.n_rows} rows")
+            self._extend(top)
+        values = self._entries[counts]
+        if values.ndim == 2:
+            values = values.sum(axis=1)
+        return np.add.reduceat(values, starts)
+
     def _sum_far(self, counts: np.ndarray) -> int:
         far = counts > DENSE_LIMIT
         total = int(self._entries[np.where(far, 0, counts)].sum())
