@@ -4,6 +4,8 @@ evaluations and cache hits, and an evaluation budget stops a fill where it stops
 
 from __future__ import annotations
 
+from collections.abc import Iterable, Sequence
+
 import numpy as np
 from conftest import ALL_SCORES, ConstraintCase, DataCase, constraint_cases, data_cases, random_dag
 from hypothesis import given, settings
@@ -14,11 +16,13 @@ from runner.scores import build_scorer
 from runner.scores.cache import parent_mask
 from runner.search import Budget, MoveEngine, hill_climb
 from runner.search.budget import FillCheck
+from runner.search.engine import KINDS, Move
 
 
 class FamilyAtATimeEngine(MoveEngine):
-    """The engine as it was: every variable visited, one family score each, and the
-    reversal paths by a float matrix product."""
+    """The engine as it was: every variable visited, one family score each, the
+    reversal paths by a float matrix product, and the best move chosen from the dense
+    n x n delta tables."""
 
     def _refresh_column(self, child: int, check: FillCheck | None = None) -> bool:
         scorer = self.scorer
@@ -48,6 +52,26 @@ class FamilyAtATimeEngine(MoveEngine):
         other_path = (a.astype(np.float32) @ self.reach.astype(np.float32)) > 0
         reverse = delete & self.allowed.T & room[:, None] & ~other_path
         return add, delete, reverse
+
+    def best_move(self, exclude: Iterable[Move] = (),
+                  rng: np.random.Generator | None = None,
+                  kinds: Sequence[str] = KINDS) -> tuple[Move, float] | None:
+        tables = self.delta_tables()
+        for kind, table in zip(KINDS, tables, strict=True):
+            if kind not in kinds:
+                table.fill(-np.inf)
+        for move in exclude:
+            tables[KINDS.index(move.kind)][move.source, move.target] = -np.inf
+        best = max(float(t.max()) if t.size else -np.inf for t in tables)
+        if not np.isfinite(best):
+            return None
+        near = best - self.tolerance()
+        tied = [(kind, int(h)) for kind, table in zip(KINDS, tables, strict=True)
+                for h in np.flatnonzero(table >= near)]
+        kind, flat = tied[0] if rng is None or len(tied) == 1 else tied[
+            int(rng.integers(len(tied)))]
+        s, t = divmod(flat, self.n)
+        return Move(kind, s, t), float(tables[KINDS.index(kind)][s, t])
 
 
 Case = tuple[DataCase, ConstraintCase, str, int | None, float | None, int]
@@ -132,3 +156,41 @@ def test_a_column_asks_only_for_the_allowed_and_present_parents() -> None:
     recorder = Recorder(n)
     MoveEngine(recorder, build_constraints(names, forbidden=forbidden))  # type: ignore[arg-type]
     assert recorder.columns == [(c, sorted([(c - 1) % n, (c - 2) % n])) for c in range(n)]
+
+
+@settings(max_examples=80, deadline=None)
+@given(n=st.integers(2, 9), seed=st.integers(0, 10**6), cap=st.integers(1, 4),
+       density=st.sampled_from([0.0, 0.2, 0.5]), ties=st.booleans())
+def test_the_best_move_over_known_pairs_is_the_dense_tables_choice(
+        n: int, seed: int, cap: int, density: float, ties: bool) -> None:
+    """On random DAGs, constraints and data (with many exact ties when the data are
+    constant), with random moves excluded (tabu), random kinds and seeded tie-breaking,
+    the best move found over the pairs with a known delta is the one the dense n x n
+    tables give (the engine as it was), delta included."""
+    rng = np.random.default_rng(seed)
+    parent_sets = random_dag(n, rng, density)
+    names = [f"v{i}" for i in range(n)]
+    forbidden = [(names[a], names[b]) for a in range(n) for b in range(n)
+                 if a != b and rng.random() < 0.2 and a not in parent_sets[b]]
+    cap = max(cap, max((len(ps) for ps in parent_sets), default=0))
+    required = [(names[p], names[c]) for c, ps in enumerate(parent_sets) for p in ps
+                if rng.random() < 0.2]
+    constraints = build_constraints(names, forbidden=forbidden, required=required,
+                                    parent_cap=cap)
+    rows = 40
+    codes = (np.zeros((n, rows)) if ties else rng.integers(0, 3, (n, rows))).astype(np.uint8)
+    scorer = build_scorer("bic", codes, np.full(n, 3, dtype=np.int64))
+    engine = MoveEngine(scorer, constraints, parent_sets)
+    engine.SPARSE_SHARE = 1.0  # always over the known pairs (wide data with candidates)
+    moves = [Move(k, s, t) for k in KINDS for s in range(n) for t in range(n) if s != t]
+    for trial in range(4):
+        exclude = [moves[i] for i in rng.choice(len(moves), size=min(len(moves), trial * 2),
+                                                 replace=False)]
+        kinds = [k for k in KINDS if rng.random() < 0.8] or ["add"]
+        tie_seed = int(rng.integers(1000))
+        got = engine.best_move(exclude, np.random.default_rng(tie_seed), kinds)
+        expected = FamilyAtATimeEngine.best_move(engine, exclude,
+                                                 np.random.default_rng(tie_seed), kinds)
+        assert got == expected
+        assert engine.best_move(exclude, None, kinds) == FamilyAtATimeEngine.best_move(
+            engine, exclude, None, kinds)

@@ -98,10 +98,16 @@ class BoundEngine:
 class MoveEngine(BoundEngine):
     """A DAG under constraints with the score change of every move kept up to date.
 
+    ``SPARSE_SHARE``: the best move is looked for over the pairs with a known delta when
+    they are at most this share of all pairs (candidate parents), else over the dense
+    tables (see :meth:`best_move`).
+
     With ``budget``, filling the first delta table stops when the budget runs out;
     ``stopped`` then holds the stop reason (None when the table is complete) and no move
     may be chosen: the engine holds the start graph and its score.
     """
+
+    SPARSE_SHARE = 0.05
 
     def __init__(
         self,
@@ -126,6 +132,8 @@ class MoveEngine(BoundEngine):
         self._recompute_reach()
         self.family = np.zeros(n, dtype=np.float64)
         self.toggle = np.full((n, n), np.nan, dtype=np.float64)
+        # per column, the sources whose toggle delta is known (a move may exist)
+        self._movable: list[np.ndarray] = [np.zeros(0, dtype=np.intp)] * n
         check = FillCheck(budget)
         self.stopped: str | None = None
         for child in range(n):
@@ -196,6 +204,7 @@ class MoveEngine(BoundEngine):
         if check is not None:
             check.calls += others
         self.toggle[:, child] = column
+        self._movable[child] = candidates
         return True
 
     def delta_for_add(self, source: int, target: int) -> float:
@@ -253,16 +262,9 @@ class MoveEngine(BoundEngine):
         masks = dict(zip(KINDS, self.legal_masks(), strict=True))
         return bool(masks[move.kind][move.source, move.target])
 
-    def best_move(self, exclude: Iterable[Move] = (),
-                  rng: np.random.Generator | None = None,
-                  kinds: Sequence[str] = KINDS) -> tuple[Move, float] | None:
-        """The legal move of one of ``kinds`` with the largest delta, ``exclude`` aside.
-
-        Deltas within the tolerance of the largest count as tied: the score-equivalent
-        pair X -> Y and Y -> X, say, differ only by rounding. Ties go to the first kind in
-        ``KINDS`` (add, delete, reverse), then the lowest source, then the lowest target,
-        so the choice follows this rule and not the last bits of a sum.
-        """
+    def _best_in_tables(self, exclude: Iterable[Move], rng: np.random.Generator | None,
+                        kinds: Sequence[str]) -> tuple[Move, float] | None:
+        """:meth:`best_move` over the dense n x n delta tables."""
         tables = self.delta_tables()
         for kind, table in zip(KINDS, tables, strict=True):
             if kind not in kinds:
@@ -279,6 +281,74 @@ class MoveEngine(BoundEngine):
             int(rng.integers(len(tied)))]
         s, t = divmod(flat, self.n)
         return Move(kind, s, t), float(tables[KINDS.index(kind)][s, t])
+
+    def _candidate_moves(self) -> tuple[np.ndarray, np.ndarray]:
+        """Sources and targets of every pair with a known toggle delta, in ascending
+        flat order (source, then target): the only pairs a move can be on."""
+        sizes = [c.size for c in self._movable]
+        if not sum(sizes):
+            empty = np.zeros(0, dtype=np.intp)
+            return empty, empty
+        sources = np.concatenate(self._movable)
+        targets = np.repeat(np.arange(self.n, dtype=np.intp), sizes)
+        order = np.argsort(sources * self.n + targets)
+        return sources[order], targets[order]
+
+    def best_move(self, exclude: Iterable[Move] = (),
+                  rng: np.random.Generator | None = None,
+                  kinds: Sequence[str] = KINDS) -> tuple[Move, float] | None:
+        """The legal move of one of ``kinds`` with the largest delta, ``exclude`` aside.
+
+        Deltas within the tolerance of the largest count as tied: the score-equivalent
+        pair X -> Y and Y -> X, say, differ only by rounding. Ties go to the first kind in
+        ``KINDS`` (add, delete, reverse), then the lowest source, then the lowest target,
+        so the choice follows this rule and not the last bits of a sum.
+
+        When few pairs have a known delta (candidate parents: O(n k) of them, at most
+        :attr:`SPARSE_SHARE` of the n x n pairs), only those are looked at, plus O(e n)
+        for the reversals' other paths; otherwise the n x n tables of
+        :meth:`delta_tables`. Both give the same move (the same legality rules, the same
+        order of ties).
+        """
+        if sum(c.size for c in self._movable) > self.SPARSE_SHARE * self.n * self.n:
+            return self._best_in_tables(exclude, rng, kinds)
+        sources, targets = self._candidate_moves()
+        a = self.adjacency
+        present = a[sources, targets]
+        room = a.sum(axis=0) < self.cap
+        values = self.toggle[sources, targets]
+        legal = {
+            "add": ~present & self.allowed[sources, targets] & ~self.reach[targets, sources]
+            & room[targets],
+            "delete": present & ~self.required[sources, targets],
+        }
+        reverse = legal["delete"] & self.allowed[targets, sources] & room[sources]
+        edges = np.flatnonzero(reverse)
+        if edges.size:
+            s_e, t_e = sources[edges], targets[edges]
+            other_path = (a[s_e] & self.reach[:, t_e].T).any(axis=1)
+            reverse[edges[other_path]] = False
+        legal["reverse"] = reverse
+        with np.errstate(invalid="ignore"):
+            reversed_values = values + self.toggle[targets, sources]
+        deltas = {"add": values, "delete": values, "reverse": reversed_values}
+        chosen = {kind: np.where(legal[kind], deltas[kind], -np.inf) if kind in kinds
+                  else np.full(values.size, -np.inf) for kind in KINDS}
+        excluded = list(exclude)
+        if excluded:
+            flat = sources * self.n + targets
+            for move in excluded:
+                at = np.searchsorted(flat, move.source * self.n + move.target)
+                if at < flat.size and flat[at] == move.source * self.n + move.target:
+                    chosen[move.kind][at] = -np.inf
+        best = max((float(v.max()) if v.size else -np.inf) for v in chosen.values())
+        if not np.isfinite(best):
+            return None
+        near = best - self.tolerance()
+        tied = [(kind, int(i)) for kind in KINDS for i in np.flatnonzero(chosen[kind] >= near)]
+        kind, i = tied[0] if rng is None or len(tied) == 1 else tied[
+            int(rng.integers(len(tied)))]
+        return Move(kind, int(sources[i]), int(targets[i])), float(chosen[kind][i])
 
     # -- applying moves --------------------------------------------------------------
     def apply(self, move: Move) -> float:
