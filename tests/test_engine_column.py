@@ -11,7 +11,7 @@ from conftest import ALL_SCORES, ConstraintCase, DataCase, constraint_cases, dat
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from runner.constraints import build_constraints
+from runner.constraints import Constraints, build_constraints
 from runner.scores import build_scorer
 from runner.scores.cache import parent_mask
 from runner.search import Budget, MoveEngine, hill_climb
@@ -56,22 +56,7 @@ class FamilyAtATimeEngine(MoveEngine):
     def best_move(self, exclude: Iterable[Move] = (),
                   rng: np.random.Generator | None = None,
                   kinds: Sequence[str] = KINDS) -> tuple[Move, float] | None:
-        tables = self.delta_tables()
-        for kind, table in zip(KINDS, tables, strict=True):
-            if kind not in kinds:
-                table.fill(-np.inf)
-        for move in exclude:
-            tables[KINDS.index(move.kind)][move.source, move.target] = -np.inf
-        best = max(float(t.max()) if t.size else -np.inf for t in tables)
-        if not np.isfinite(best):
-            return None
-        near = best - self.tolerance()
-        tied = [(kind, int(h)) for kind, table in zip(KINDS, tables, strict=True)
-                for h in np.flatnonzero(table >= near)]
-        kind, flat = tied[0] if rng is None or len(tied) == 1 else tied[
-            int(rng.integers(len(tied)))]
-        s, t = divmod(flat, self.n)
-        return Move(kind, s, t), float(tables[KINDS.index(kind)][s, t])
+        return self._best_in_tables(exclude, rng, kinds)  # the dense tables, always
 
 
 Case = tuple[DataCase, ConstraintCase, str, int | None, float | None, int]
@@ -102,11 +87,27 @@ def test_a_climb_is_the_same_as_one_family_at_a_time(case: Case, numba: bool) ->
             scorer._choice = "numba"  # type: ignore[attr-defined]
         budget = Budget(max_evaluations=evaluations, max_seconds=seconds)
         engine = engine_type(scorer, constraints.constraints, constraints.start(), budget)
+        engine.SPARSE_SHARE = 1.0  # the new engine's moves over the known pairs only
         outcome = hill_climb(engine, budget, rng=np.random.default_rng(seed))
         outcomes.append((outcome.parent_sets, outcome.score, outcome.steps,
                          outcome.stop_reason, outcome.evaluations, outcome.cache_hits,
                          engine.stopped, engine.toggle.tobytes()))
     assert outcomes[0] == outcomes[1]
+
+
+def _random_problem(n: int, rng: np.random.Generator, density: float, cap: int,
+                    required_share: float = 0.0) -> tuple[list[tuple[int, ...]], Constraints]:
+    """A random DAG and constraints it satisfies: random forbidden pairs off its edges,
+    a parent cap it keeps, a share of its edges required."""
+    parent_sets = random_dag(n, rng, density)
+    names = [f"v{i}" for i in range(n)]
+    forbidden = [(names[a], names[b]) for a in range(n) for b in range(n)
+                 if a != b and rng.random() < 0.2 and a not in parent_sets[b]]
+    cap = max(cap, max((len(ps) for ps in parent_sets), default=0))
+    required = [(names[p], names[c]) for c, ps in enumerate(parent_sets) for p in ps
+                if rng.random() < required_share]
+    return parent_sets, build_constraints(names, forbidden=forbidden, required=required,
+                                          parent_cap=cap)
 
 
 @settings(max_examples=60, deadline=None)
@@ -116,13 +117,7 @@ def test_the_legal_masks_equal_those_of_the_matrix_product(
         n: int, seed: int, cap: int, density: float) -> None:
     """Reversal legality (i reaches j other than by the edge) by boolean rows of the
     edges equals the float matrix product's, on random DAGs with random forbidden pairs."""
-    rng = np.random.default_rng(seed)
-    parent_sets = random_dag(n, rng, density)
-    names = [f"v{i}" for i in range(n)]
-    forbidden = [(names[a], names[b]) for a in range(n) for b in range(n)
-                 if a != b and rng.random() < 0.2 and a not in parent_sets[b]]
-    cap = max(cap, max((len(ps) for ps in parent_sets), default=0))
-    constraints = build_constraints(names, forbidden=forbidden, parent_cap=cap)
+    parent_sets, constraints = _random_problem(n, np.random.default_rng(seed), density, cap)
     codes = np.zeros((n, 1), dtype=np.uint8)
     scorer = build_scorer("bic", codes, np.full(n, 2, dtype=np.int64))
     new = MoveEngine(scorer, constraints, parent_sets)
@@ -168,15 +163,7 @@ def test_the_best_move_over_known_pairs_is_the_dense_tables_choice(
     the best move found over the pairs with a known delta is the one the dense n x n
     tables give (the engine as it was), delta included."""
     rng = np.random.default_rng(seed)
-    parent_sets = random_dag(n, rng, density)
-    names = [f"v{i}" for i in range(n)]
-    forbidden = [(names[a], names[b]) for a in range(n) for b in range(n)
-                 if a != b and rng.random() < 0.2 and a not in parent_sets[b]]
-    cap = max(cap, max((len(ps) for ps in parent_sets), default=0))
-    required = [(names[p], names[c]) for c, ps in enumerate(parent_sets) for p in ps
-                if rng.random() < 0.2]
-    constraints = build_constraints(names, forbidden=forbidden, required=required,
-                                    parent_cap=cap)
+    parent_sets, constraints = _random_problem(n, rng, density, cap, required_share=0.2)
     rows = 40
     codes = (np.zeros((n, rows)) if ties else rng.integers(0, 3, (n, rows))).astype(np.uint8)
     scorer = build_scorer("bic", codes, np.full(n, 3, dtype=np.int64))
