@@ -50,7 +50,12 @@ import numpy as np
 
 from runner.scores.available import present_rows
 from runner.scores.conditional_gaussian import ConfigurationFit, MixedData, continuous_fits
-from runner.scores.counts import COMPACT_ABOVE, configuration_codes
+from runner.scores.counts import (
+    COMPACT_ABOVE,
+    DENSE_CELLS_FLOOR,
+    DENSE_CELLS_PER_ROW,
+    configuration_codes,
+)
 from runner.scores.elementary import ln, ln_scalar
 from runner.scores.fixed_order import sum_floats
 from runner.scores.gaussian import (
@@ -134,6 +139,18 @@ def discrete_family(codes: np.ndarray, arities: np.ndarray, child: int,
         return DiscreteFamily(child, tuple(parents), r, possible, np.zeros(0, np.uint64),
                               np.zeros((0, len(parents)), np.int64), np.zeros((0, r), np.int64))
     config = _codes_of(codes, arities, parents)
+    if possible * r <= max(DENSE_CELLS_PER_ROW * codes.shape[1], DENSE_CELLS_FLOOR):
+        # few possible cells: one bincount over them, the occurring configurations read
+        # off the table (ascending, as np.unique gives them) and decoded by mixed radix
+        dense = np.bincount(config.astype(np.int64) * r + codes[child].astype(np.int64),
+                            minlength=possible * r).reshape(possible, r)
+        occurring = np.flatnonzero(dense.any(axis=1))
+        parent_states = (np.stack(np.unravel_index(occurring, [int(arities[p]) for p in parents]),
+                                  axis=1).astype(np.int64) if parents
+                         else np.zeros((occurring.size, 0), np.int64))
+        return DiscreteFamily(child, tuple(parents), r, possible,
+                              occurring.astype(np.uint64), parent_states,
+                              dense[occurring].astype(np.int64))
     configs, first, inverse = np.unique(config, return_index=True, return_inverse=True)
     flat = np.bincount(inverse.astype(np.int64) * r + codes[child].astype(np.int64),
                        minlength=configs.size * r)

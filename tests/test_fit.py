@@ -124,3 +124,40 @@ def test_unseen_states_and_configurations_are_counted() -> None:
     assert ll.tolist() == pytest.approx(expected, rel=1e-13)
     ml, _ = log_likelihood_rows(fams, held, 0.0)
     assert ml[1] == -math.inf  # why held-out evaluation refuses pseudo_count 0
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.data())
+def test_a_family_table_equals_the_groupby_counts(data: st.DataObject) -> None:
+    """Property: each family's occurring parent configurations (ascending mixed-radix
+    codes, first parent most significant), their parents' states and counts equal those
+    of ``pandas.DataFrame.groupby`` (reference library), for small code spaces (one
+    dense count) and large ones (the sorted-unique path) alike."""
+    import pandas as pd
+
+    n_vars = data.draw(st.integers(2, 5))
+    rows = data.draw(st.integers(1, 60))
+    wide = data.draw(st.booleans())
+    arities = np.array(data.draw(st.lists(st.integers(1, 300 if wide else 4),
+                                          min_size=n_vars, max_size=n_vars)), dtype=np.int64)
+    rng = np.random.default_rng(data.draw(st.integers(0, 2**32 - 1)))
+    codes = (rng.random((n_vars, rows)) * arities[:, None]).astype(np.uint16)
+    child = data.draw(st.integers(0, n_vars - 1))
+    parents = sorted(data.draw(st.sets(st.integers(0, n_vars - 1).filter(
+        lambda v: v != child), max_size=3)))
+    fam = discrete_family(codes, arities, child, parents)
+    frame = pd.DataFrame(codes.T.astype(np.int64), columns=[f"v{i}" for i in range(n_vars)])
+    keys = [f"v{p}" for p in parents]
+    if keys:
+        groups = frame.groupby(keys, sort=True)[f"v{child}"].value_counts().unstack(
+            fill_value=0).reindex(columns=range(int(arities[child])), fill_value=0)
+        states = np.array([k if isinstance(k, tuple) else (k,) for k in groups.index])
+        assert np.array_equal(fam.parent_states, states)
+        assert np.array_equal(fam.counts, groups.to_numpy())
+        radix = np.ones(len(parents), dtype=np.int64)
+        for i in range(len(parents) - 2, -1, -1):
+            radix[i] = radix[i + 1] * arities[parents[i + 1]]
+        assert fam.configs.tolist() == (states @ radix).tolist()
+    else:
+        counts = np.bincount(codes[child], minlength=int(arities[child]))
+        assert fam.counts.tolist() == [counts.tolist()]
