@@ -173,13 +173,20 @@ def _family_cells(codes: np.ndarray, arities: np.ndarray, child: int,
     return inverse.reshape(-1), config_of_cell.reshape(-1), q
 
 
+def _weighted(cells: tuple[np.ndarray, np.ndarray], weights: np.ndarray
+              ) -> tuple[np.ndarray, np.ndarray]:
+    """``(n_jk, n_j)`` of a family's cells (:func:`_family_cells`) under ``weights``."""
+    inverse, config_of_cell = cells
+    n_jk = np.bincount(inverse, weights=weights)
+    return n_jk, np.bincount(config_of_cell, weights=n_jk)
+
+
 def expected_counts(completions: Completions, weights: np.ndarray, arities: np.ndarray,
                     child: int, parents: Sequence[int]) -> tuple[np.ndarray, np.ndarray, int]:
     """Expected counts of a family: ``(n_jk, n_j, q)`` with one entry of ``n_jk`` per
     occurring (configuration, child state) cell, ``n_j`` per occurring configuration."""
     inverse, config_of_cell, q = _family_cells(completions.codes, arities, child, parents)
-    n_jk = np.bincount(inverse, weights=weights)
-    n_j = np.bincount(config_of_cell, weights=n_jk)
+    n_jk, n_j = _weighted((inverse, config_of_cell), weights)
     return n_jk, n_j, q
 
 
@@ -190,16 +197,13 @@ def expected_log_likelihood(n_jk: np.ndarray, n_j: np.ndarray) -> float:
     return math.fsum((a * ln(a)).tolist()) - math.fsum((b * ln(b)).tolist())
 
 
-def _table_lookup(completions: Completions, weights: np.ndarray, arities: np.ndarray,
-                  child: int, parents: Sequence[int], prior: float) -> np.ndarray:
+def _table_lookup(cells: tuple[np.ndarray, np.ndarray], weights: np.ndarray, r: int,
+                  prior: float) -> np.ndarray:
     """Per completed row, its family's fitted probability of the row's child state:
     (n_jk + a) / (n_j + a r) with a = prior / r."""
-    r = int(arities[child])
-    inverse, config_of_cell, _ = _family_cells(completions.codes, arities, child, parents)
-    n_jk = np.bincount(inverse, weights=weights)
-    n_j = np.bincount(config_of_cell, weights=n_jk)
-    a = prior / r
-    theta = (n_jk + a) / (n_j[config_of_cell] + prior)
+    inverse, config_of_cell = cells
+    n_jk, n_j = _weighted(cells, weights)
+    theta = (n_jk + prior / r) / (n_j[config_of_cell] + prior)
     return np.asarray(theta[inverse])
 
 
@@ -227,10 +231,11 @@ def em_weights(completions: Completions, arities: np.ndarray,
         touched[p.missing] = [v for v in range(n_vars)
                               if v in cols or cols.intersection(parent_sets[v])]
     needed = sorted({v for vs in touched.values() for v in vs})
+    cells = {v: _family_cells(completions.codes, arities, v, parent_sets[v])[:2]
+             for v in needed}  # the cells stay; only their weights change
     done = 0
     for done in range(1, iterations + 1):  # noqa: B007 - the count is returned
-        theta = {v: _table_lookup(completions, weights, arities, v, parent_sets[v], prior)
-                 for v in needed}
+        theta = {v: _table_lookup(cells[v], weights, int(arities[v]), prior) for v in needed}
         new = weights.copy()
         for p in incomplete:
             block = np.ones(p.stop - p.start, dtype=np.float64)
