@@ -334,3 +334,33 @@ def test_candidates_refused_under_available_case(tmp_path: Path, cli: CliCall) -
     done = cli("validate", "specs/gaps.yaml", cwd=tmp_path)
     assert done.returncode == 2
     assert "search.candidates:" in done.stdout and "available-case" in done.stdout
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.data())
+def test_the_shielding_measure_from_family_tables_equals_the_stratified_count(
+        data: st.DataObject) -> None:
+    """N I(X; Y | Z) taken as LL(X | Z, Y) - LL(X | Z) from the scorer's family tables
+    (numpy path and compiled kernel alike) is the same integer as the stratified count
+    for every Y, so the re-estimation rounds rank the same way."""
+    from runner.scores.counts import CountScorer
+    from runner.scores.likelihood import loglik_family
+    from runner.search.candidates import shielding, stratified
+
+    n = data.draw(st.integers(3, 6))
+    rows = data.draw(st.integers(5, 120))
+    arities = np.array(data.draw(st.lists(st.integers(1, 4), min_size=n, max_size=n)),
+                       dtype=np.int64)
+    rng = np.random.default_rng(data.draw(st.integers(0, 2**32 - 1)))
+    codes = (rng.random((n, rows)) * arities[:, None]).astype(np.uint8)
+    x = data.draw(st.integers(0, n - 1))
+    given = sorted(data.draw(st.sets(st.integers(0, n - 1).filter(lambda v: v != x),
+                                     min_size=1, max_size=2)))
+    others = [v for v in range(n) if v != x and v not in given]
+    if not others:
+        return
+    bits = 30
+    scorer = CountScorer(loglik_family, codes, arities)
+    scorer._choice = data.draw(st.sampled_from(["numpy", "numba"]))  # type: ignore[attr-defined]
+    expected = stratified(codes, arities, x, given, others, bits).fixed
+    assert shielding(scorer, x, given, others, bits).tolist() == expected.tolist()

@@ -280,11 +280,12 @@ class CountScorer(CachedScorer):
         table, q = self.counts(child, mask_members(mask))
         return self.function(table, q, self.n_rows)
 
-    def _compute_column(self, child: int, mask: int, candidates: Sequence[int]) -> list[float]:
-        """The kernel counts every added parent from one configuration code of ``mask``;
-        removals and tables too large for the dense count are counted one by one. The
-        tables are then scored together when the score has a several-tables form
-        (:func:`runner.scores.likelihood.column_form`: the same bits as one by one)."""
+    def column_tables(self, child: int, mask: int,
+                      candidates: Sequence[int]) -> list[tuple[np.ndarray, int]]:
+        """The count tables and ``q`` of ``child`` given ``mask`` with each candidate's bit
+        flipped, as :meth:`counts` gives them; with the kernel, every added parent counted
+        from one configuration code of ``mask``, removals and tables too large for the
+        dense count one by one. The cache and counters are not touched."""
         kernel = self._kernel()
         parents = list(mask_members(mask))
         found: dict[int, tuple[np.ndarray, int]] = {}
@@ -301,7 +302,13 @@ class CountScorer(CachedScorer):
         for p in candidates:
             if p not in found:
                 found[p] = self.counts(child, mask_members(mask ^ (1 << p)))
-        pairs = [found[p] for p in candidates]
+        return [found[p] for p in candidates]
+
+    def _compute_column(self, child: int, mask: int, candidates: Sequence[int]) -> list[float]:
+        """The column's tables (:meth:`column_tables`) scored together when the score has
+        a several-tables form (:func:`runner.scores.likelihood.column_form`: the same bits
+        as one by one)."""
+        pairs = self.column_tables(child, mask, candidates)
         if self.column_function is not None:
             return self.column_function([t for t, _ in pairs], [q for _, q in pairs],
                                         self.n_rows)
