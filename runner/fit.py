@@ -126,61 +126,53 @@ def _codes_of(codes: np.ndarray, arities: np.ndarray, parents: Sequence[int]) ->
 
 
 def discrete_family(codes: np.ndarray, arities: np.ndarray, child: int,
-                    parents: Sequence[int]) -> DiscreteFamily:
+                    parents: Sequence[int], weights: np.ndarray | None = None) -> DiscreteFamily:
     """The counts of one family over the rows of ``codes`` where the child and every
     parent are present (all of them unless the data keeps missing cells, coded as the
-    column's arity, under ``dataset.missing: available-case``)."""
+    column's arity, under ``dataset.missing: available-case``). With ``weights`` (one per
+    row: structural EM's completed rows, :mod:`runner.scores.expected`) the counts are
+    the rows' weights summed, floats: the family's expected counts."""
     present = present_rows(codes, arities, [child, *parents])
     if not present.all():
         codes = codes[:, present]
+        weights = None if weights is None else weights[present]
     r = int(arities[child])
     possible = int(np.prod([int(arities[p]) for p in parents], dtype=object)) if parents else 1
     if codes.shape[1] == 0:
         return DiscreteFamily(child, tuple(parents), r, possible, np.zeros(0, np.uint64),
                               np.zeros((0, len(parents)), np.int64), np.zeros((0, r), np.int64))
     config = _codes_of(codes, arities, parents)
+
+    def counted(table: np.ndarray) -> np.ndarray:
+        return table if weights is not None else table.astype(np.int64)
+
     if possible * r <= max(DENSE_CELLS_PER_ROW * codes.shape[1], DENSE_CELLS_FLOOR):
         # few possible cells: one bincount over them, the occurring configurations read
         # off the table (ascending, as np.unique gives them) and decoded by mixed radix
         dense = np.bincount(config.astype(np.int64) * r + codes[child].astype(np.int64),
-                            minlength=possible * r).reshape(possible, r)
-        occurring = np.flatnonzero(dense.any(axis=1))
+                            weights=weights, minlength=possible * r).reshape(possible, r)
+        seen = (dense.any(axis=1) if weights is None
+                else np.bincount(config.astype(np.int64), minlength=possible) > 0)
+        occurring = np.flatnonzero(seen)
         parent_states = (np.stack(np.unravel_index(occurring, [int(arities[p]) for p in parents]),
                                   axis=1).astype(np.int64) if parents
                          else np.zeros((occurring.size, 0), np.int64))
         return DiscreteFamily(child, tuple(parents), r, possible,
                               occurring.astype(np.uint64), parent_states,
-                              dense[occurring].astype(np.int64))
-    configs, first, inverse = np.unique(config, return_index=True, return_inverse=True)
-    flat = np.bincount(inverse.astype(np.int64) * r + codes[child].astype(np.int64),
-                       minlength=configs.size * r)
-    parent_states = (codes[list(parents)][:, first].T.astype(np.int64) if parents
-                     else np.zeros((configs.size, 0), np.int64))
-    return DiscreteFamily(child, tuple(parents), r, possible, configs, parent_states,
-                          flat.reshape(configs.size, r).astype(np.int64))
-
-
-def fit_discrete(codes: np.ndarray, arities: np.ndarray,
-                 parent_sets: Sequence[Sequence[int]]) -> list[DiscreteFamily]:
-    """Every family's counts, in column order."""
-    return [discrete_family(codes, arities, c, tuple(ps)) for c, ps in enumerate(parent_sets)]
-
-
-def expected_family(codes: np.ndarray, weights: np.ndarray, arities: np.ndarray,
-                    child: int, parents: Sequence[int]) -> DiscreteFamily:
-    """One family's *expected* counts over completed rows ``codes`` (no missing cell)
-    weighted by ``weights`` (structural EM: :mod:`runner.scores.expected`), as a
-    :class:`DiscreteFamily` whose counts are floats."""
-    r = int(arities[child])
-    possible = int(np.prod([int(arities[p]) for p in parents], dtype=object)) if parents else 1
-    config = _codes_of(codes, arities, parents)
+                              counted(dense[occurring]))
     configs, first, inverse = np.unique(config, return_index=True, return_inverse=True)
     flat = np.bincount(inverse.astype(np.int64) * r + codes[child].astype(np.int64),
                        weights=weights, minlength=configs.size * r)
     parent_states = (codes[list(parents)][:, first].T.astype(np.int64) if parents
                      else np.zeros((configs.size, 0), np.int64))
     return DiscreteFamily(child, tuple(parents), r, possible, configs, parent_states,
-                          flat.reshape(configs.size, r))
+                          counted(flat.reshape(configs.size, r)))
+
+
+def fit_discrete(codes: np.ndarray, arities: np.ndarray,
+                 parent_sets: Sequence[Sequence[int]]) -> list[DiscreteFamily]:
+    """Every family's counts, in column order."""
+    return [discrete_family(codes, arities, c, tuple(ps)) for c, ps in enumerate(parent_sets)]
 
 
 def fit_gaussian(values: np.ndarray | GaussianStatistics,
@@ -311,7 +303,7 @@ def fit_model(dataset: Dataset, gaussian: bool, parent_sets: Sequence[Sequence[i
 
     ``statistics`` are the learning rows' (the scorer's), computed from
     ``dataset.values`` when not given. ``expected`` (structural EM) is the completed codes
-    and their weights: the tables then hold expected counts (:func:`expected_family`)."""
+    and their weights: the tables then hold expected counts (:func:`discrete_family`)."""
     if mixed:
         families = fit_mixed(mixed_data(dataset), parent_sets)
         return mixed_model_document(families, dataset.names, dataset.states, pseudo_count,
@@ -325,7 +317,7 @@ def fit_model(dataset: Dataset, gaussian: bool, parent_sets: Sequence[Sequence[i
                                        dataset.sha256, graph_hash), gauss
     if expected is not None:
         completed, weights = expected
-        tables = [expected_family(completed, weights, dataset.arities, c, tuple(ps))
+        tables = [discrete_family(completed, dataset.arities, c, tuple(ps), weights)
                   for c, ps in enumerate(parent_sets)]
     else:
         tables = fit_discrete(dataset.codes, dataset.arities, parent_sets)

@@ -133,15 +133,21 @@ def make_scorer(score: Mapping[str, Any], dataset: Dataset,
     return entry.builder.load()(entry.name, entry.params.pick(score), dataset)
 
 
+def _keeps_gaps_score(name: str, dataset: Dataset, policy: str) -> None:
+    """InputError unless score ``name`` has a form under the keep-the-row ``policy`` (the
+    penalised log-likelihood scores: a rescore under another score is refused)."""
+    if name not in registry.AVAILABLE_CASE_SCORES:
+        raise InputError(Problem(
+            dataset.path, f"the data was read with dataset.missing: {policy}, which works "
+            f"with the scores {', '.join(registry.AVAILABLE_CASE_SCORES)} only, not "
+            f"score.name '{name}'", key="score.name", value=name))
+
+
 def structural_em_scorer(name: str, dataset: Dataset) -> SelfWeightedScorer:
     """The scorer of ``dataset.missing: structural-em`` (:mod:`runner.scores.expected`):
     every completion of every row, weighted per DAG by EM; InputError for a score without
     that form or a table with too many gaps per row."""
-    if name not in registry.AVAILABLE_CASE_SCORES:
-        raise InputError(Problem(
-            dataset.path, f"the data was read with dataset.missing: structural-em, which "
-            f"works with the scores {', '.join(registry.AVAILABLE_CASE_SCORES)} only, not "
-            f"score.name '{name}'", key="score.name", value=name))
+    _keeps_gaps_score(name, dataset, "structural-em")
     try:
         completions = complete_rows(dataset.codes, dataset.arities)
     except TooManyCompletions as error:
@@ -159,11 +165,7 @@ def available_case_scorer(name: str, dataset: Dataset) -> FamilyScorer:
     rows where its columns are present, by the penalised node-average likelihood
     (:mod:`runner.scores.available`); InputError for a score without that form (a
     rescore under another score)."""
-    if name not in registry.AVAILABLE_CASE_SCORES:
-        raise InputError(Problem(
-            dataset.path, f"the data was read with dataset.missing: available-case, which "
-            f"works with the scores {', '.join(registry.AVAILABLE_CASE_SCORES)} only, not "
-            f"score.name '{name}'", key="score.name", value=name))
+    _keeps_gaps_score(name, dataset, "available-case")
     return AvailableCaseScorer(name, dataset.codes, dataset.arities)
 
 

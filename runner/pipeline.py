@@ -422,6 +422,14 @@ def _consensus_hash(record: dict[str, Any]) -> str | None:
 Searched = tuple[SearchOutcome, list[RunSummary], dict[str, Any], dict[str, Any]]
 
 
+def start_graph(constraints: Constraints) -> list[list[int]]:
+    """The spec's start graph as parent sets: its required edges, nothing else."""
+    start: list[list[int]] = [[] for _ in range(constraints.n_vars)]
+    for i, j in sorted(constraints.required):
+        start[j].append(i)
+    return start
+
+
 def run_search(prepared: Prepared, scorer: FamilyScorer, budget: Budget,
                rng: np.random.Generator, bar: Progress | None = None,
                data: Dataset | None = None) -> Searched:
@@ -431,9 +439,7 @@ def run_search(prepared: Prepared, scorer: FamilyScorer, budget: Budget,
     With ``search.candidates`` the candidate parents are screened on ``data`` (the rows
     the scorer counts; default the prepared data set) and the search runs on them."""
     spec, names, constraints = prepared.spec, prepared.dataset.names, prepared.constraints
-    start: list[list[int]] = [[] for _ in names]
-    for i, j in sorted(constraints.required):
-        start[j].append(i)
+    start = start_graph(constraints)
     refused = _candidates_refusal(prepared)
     if refused is not None:
         raise SearchRefused(refused.key, refused.message)
@@ -500,9 +506,7 @@ def search_scored(
     ``structural_em`` block."""
     if not isinstance(scorer, SelfWeightedScorer):
         return run_search(prepared, scorer, budget, rng, bar, data), scorer
-    start: list[list[int]] = [[] for _ in prepared.dataset.names]
-    for i, j in sorted(prepared.constraints.required):
-        start[j].append(i)
+    start = start_graph(prepared.constraints)
 
     state = rng.bit_generator.state
 
