@@ -134,6 +134,7 @@ class MoveEngine(BoundEngine):
         self.toggle = np.full((n, n), np.nan, dtype=np.float64)
         # per column, the sources whose toggle delta is known (a move may exist)
         self._movable: list[np.ndarray] = [np.zeros(0, dtype=np.intp)] * n
+        self._known = 0  # their total: the pairs with a known delta
         check = FillCheck(budget)
         self.stopped: str | None = None
         for child in range(n):
@@ -204,6 +205,7 @@ class MoveEngine(BoundEngine):
         if check is not None:
             check.calls += others
         self.toggle[:, child] = column
+        self._known += candidates.size - self._movable[child].size
         self._movable[child] = candidates
         return True
 
@@ -286,7 +288,7 @@ class MoveEngine(BoundEngine):
         """Sources and targets of every pair with a known toggle delta, in ascending
         flat order (source, then target): the only pairs a move can be on."""
         sizes = [c.size for c in self._movable]
-        if not sum(sizes):
+        if not self._known:
             empty = np.zeros(0, dtype=np.intp)
             return empty, empty
         sources = np.concatenate(self._movable)
@@ -310,7 +312,7 @@ class MoveEngine(BoundEngine):
         :meth:`delta_tables`. Both give the same move (the same legality rules, the same
         order of ties).
         """
-        if sum(c.size for c in self._movable) > self.SPARSE_SHARE * self.n * self.n:
+        if self._known > self.SPARSE_SHARE * self.n * self.n:
             return self._best_in_tables(exclude, rng, kinds)
         sources, targets = self._candidate_moves()
         a = self.adjacency
