@@ -181,3 +181,31 @@ def test_the_best_move_over_known_pairs_is_the_dense_tables_choice(
         assert got == expected
         assert engine.best_move(exclude, None, kinds) == FamilyAtATimeEngine.best_move(
             engine, exclude, None, kinds)
+
+
+class SmallBatchEngine(MoveEngine):
+    """The engine computing a few columns ahead at a time (batch boundaries inside the
+    fill, where an evaluation budget may stop it)."""
+
+    PREFETCH_FAMILIES = 7
+
+
+@settings(max_examples=40, deadline=None)
+@given(case=climb_cases())
+def test_columns_computed_ahead_change_nothing(case: Case) -> None:
+    """A scorer with a batch backend (values computed ahead, then taken by the lookups)
+    gives the same climb, counters, budget stop and deltas as one computing at each
+    lookup: what is computed ahead is neither cached nor counted until asked for."""
+    data, constraints, score, evaluations, seconds, seed = case
+    outcomes = []
+    for batches in (False, True):
+        scorer = build_scorer(score, data.codes, data.arities)
+        scorer.batches = batches  # type: ignore[misc]
+        budget = Budget(max_evaluations=evaluations, max_seconds=seconds)
+        engine = SmallBatchEngine(scorer, constraints.constraints, constraints.start(), budget)
+        outcome = hill_climb(engine, budget, rng=np.random.default_rng(seed))
+        outcomes.append((outcome.parent_sets, outcome.score, outcome.steps,
+                         outcome.stop_reason, outcome.evaluations, outcome.cache_hits,
+                         engine.stopped, engine.toggle.tobytes()))
+        assert not scorer._ready  # type: ignore[attr-defined]
+    assert outcomes[0] == outcomes[1]

@@ -30,6 +30,10 @@ def cache_limit_for(n_vars: int) -> int:
     room for 2 n (n - 1) families when that is more, at most :data:`MAX_CACHE_LIMIT`."""
     return min(max(DEFAULT_CACHE_LIMIT, 2 * n_vars * (n_vars - 1)), MAX_CACHE_LIMIT)
 
+#: A column of families: ``(child, mask, candidates)``, the child given ``mask`` with each
+#: candidate's bit flipped.
+ColumnRequest = tuple[int, int, Sequence[int]]
+
 #: The former name of a scorer's type, kept for annotations: the protocol.
 FamilyScorer = Scorer
 
@@ -59,8 +63,20 @@ class CachedScorer(ABC):
 
     ``evaluations`` counts family scores actually computed (cache misses); ``hits``
     counts answers served from the cache. Subclasses implement :meth:`_compute`, and
-    may implement :meth:`_compute_column` (several families of one child at once).
+    may implement :meth:`_compute_column` (several families of one child at once) and
+    :meth:`_compute_batch` (several columns at once: on a pool's workers, or where the
+    rows live).
+
+    Batches ahead. :meth:`prefetch` computes the misses of columns a search is about to
+    ask for in one :meth:`_compute_batch` and keeps them aside (not in the cache, not
+    counted); a later lookup takes a kept value instead of computing it, and only then
+    caches and counts it. So the answers, the cache, the counters and a budget's stopping
+    place are exactly those of the lookups alone, whatever was computed ahead.
+    ``batches`` says whether a prefetch pays (False here: the lookups compute the same).
     """
+
+    #: Whether :meth:`prefetch` computes anything (a scorer with a batch backend).
+    batches = False
 
     def __init__(self, n_vars: int, n_rows: int, cache_limit: int | None = None) -> None:
         self.n_vars = n_vars
@@ -69,6 +85,7 @@ class CachedScorer(ABC):
         self._cache: OrderedDict[tuple[int, int], float] = OrderedDict()
         self.evaluations = 0
         self.hits = 0
+        self._ready: dict[tuple[int, int], float] = {}
 
     @abstractmethod
     def _compute(self, child: int, mask: int) -> float:
@@ -78,6 +95,53 @@ class CachedScorer(ABC):
         """The scores of ``child`` given ``mask`` with each candidate's bit flipped (cache
         misses all); one :meth:`_compute` each unless a subclass does better."""
         return [self._compute(child, mask ^ (1 << p)) for p in candidates]
+
+    def _compute_batch(self, requests: Sequence[ColumnRequest]) -> list[list[float]]:
+        """The scores of several columns' families (cache misses all): for each request
+        ``(child, mask, candidates)``, ``child`` given ``mask`` with each candidate's bit
+        flipped, in order; one :meth:`_compute_column` each unless a subclass does better.
+        A candidate equal to the child stands for ``mask`` itself (the column's base)."""
+        return [self._column_with_base(child, mask, candidates)
+                for child, mask, candidates in requests]
+
+    def _column_with_base(self, child: int, mask: int, candidates: Sequence[int]) -> list[float]:
+        """:meth:`_compute_column`, with the child itself standing for ``mask`` unflipped."""
+        flips = [p for p in candidates if p != child]
+        values = iter(self._compute_column(child, mask, flips))
+        return [self._compute(child, mask) if p == child else next(values) for p in candidates]
+
+    def prefetch(self, requests: Iterable[ColumnRequest]) -> int:
+        """Compute ahead, in one batch, the families of these columns (each ``child``
+        given ``mask`` itself and with each candidate's bit flipped) that are neither
+        cached nor kept aside already; keep them aside for the lookups that follow.
+        Returns how many were computed (none unless :attr:`batches`)."""
+        if not self.batches:
+            return 0
+        cache, ready = self._cache, self._ready
+        todo: list[tuple[int, int, list[int]]] = []
+        for child, mask, candidates in requests:
+            wanted = [p for p in (child, *candidates)
+                      if (key := (child, mask if p == child else mask ^ (1 << p))) not in cache
+                      and key not in ready]
+            if wanted:
+                todo.append((child, mask, wanted))
+        if not todo:
+            return 0
+        computed = 0
+        for (child, mask, wanted), values in zip(todo, self._compute_batch(todo), strict=True):
+            for p, value in zip(wanted, values, strict=True):
+                ready[(child, mask if p == child else mask ^ (1 << p))] = value
+            computed += len(wanted)
+        return computed
+
+    def discard_ready(self) -> None:
+        """Forget the values computed ahead and not asked for (a search that stopped)."""
+        self._ready.clear()
+
+    def _take(self, child: int, mask: int) -> float:
+        """A miss: the value computed ahead, else computed now."""
+        value = self._ready.pop((child, mask), None)
+        return self._compute(child, mask) if value is None else value
 
     def family(self, child: int, parents: Iterable[int]) -> float:
         """Score of ``child`` given exactly ``parents``."""
@@ -91,7 +155,7 @@ class CachedScorer(ABC):
             self.hits += 1
             self._cache.move_to_end(key)
             return cached
-        value = self._compute(child, mask)
+        value = self._take(child, mask)
         self.evaluations += 1
         self._cache[key] = value
         if len(self._cache) > self.cache_limit:
@@ -113,7 +177,15 @@ class CachedScorer(ABC):
             # evictions could interleave with the lookups: ask one family at a time
             return np.array([self.family_by_mask(c, m) for c, m in keys], dtype=np.float64)
         missing = [p for p, key in zip(candidates, keys, strict=True) if key not in cache]
-        computed = dict(zip(missing, self._compute_column(child, mask, missing), strict=True))
+        computed: dict[int, float] = {}
+        ready = self._ready
+        if ready:
+            for p in missing:
+                value = ready.pop((child, mask ^ (1 << p)), None)
+                if value is not None:
+                    computed[p] = value
+            missing = [p for p in missing if p not in computed]
+        computed.update(zip(missing, self._compute_column(child, mask, missing), strict=True))
         out = np.empty(len(keys), dtype=np.float64)
         for i, (p, key) in enumerate(zip(candidates, keys, strict=True)):
             value = computed.get(p)

@@ -50,6 +50,16 @@ class Scorer(Protocol):
         :meth:`family_by_mask` gives them one by one (the same cache and counters)."""
         ...
 
+    def prefetch(self, requests: Iterable[tuple[int, int, Sequence[int]]]) -> int:
+        """Compute ahead, in one batch, the families of these columns ``(child, mask,
+        candidates)`` (``mask`` itself and each candidate's bit flipped) for the lookups
+        that follow; answers, cache and counters stay those of the lookups alone."""
+        ...
+
+    def discard_ready(self) -> None:
+        """Forget what :meth:`prefetch` computed and no lookup asked for."""
+        ...
+
     def total(self, parent_sets: Iterable[Iterable[int]]) -> float:
         """Exactly rounded sum of the family scores of a DAG (one parent set per variable)."""
         ...

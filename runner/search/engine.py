@@ -108,6 +108,9 @@ class MoveEngine(BoundEngine):
     """
 
     SPARSE_SHARE = 0.05
+    #: Families of the first fill computed ahead in one batch by a scorer with a batch
+    #: backend (a pool's workers, or the workers holding the rows).
+    PREFETCH_FAMILIES = 20_000
 
     def __init__(
         self,
@@ -137,13 +140,19 @@ class MoveEngine(BoundEngine):
         self._known = 0  # their total: the pairs with a known delta
         check = FillCheck(budget)
         self.stopped: str | None = None
+        ahead = self._prefetch_size()
         for child in range(n):
             if self.stopped is None:
+                if ahead and child % ahead == 0:  # the next columns in one batch
+                    scorer.prefetch([self._column_request(c)
+                                     for c in range(child, min(child + ahead, n))])
                 if not self._refresh_column(child, check):
                     self.stopped = check.stopped
             else:  # the start graph's score stays whole: its family scores only
                 self.family[child] = scorer.family_by_mask(
                     child, parent_mask(self.parents(child)))
+        if ahead:
+            scorer.discard_ready()
 
     # -- the graph -------------------------------------------------------------------
     def parents(self, child: int) -> tuple[int, ...]:
@@ -162,6 +171,43 @@ class MoveEngine(BoundEngine):
         return RELATIVE_TOLERANCE * max(1.0, abs(self.score))
 
     # -- deltas ----------------------------------------------------------------------
+    def _column(self, child: int) -> tuple[int, np.ndarray]:
+        """Column ``child``'s parent mask and the candidates whose toggle deltas it keeps:
+        the present parents that may leave, and the allowed ones that may enter while the
+        cap leaves room."""
+        present = self.adjacency[:, child]
+        mask = parent_mask(np.flatnonzero(present).tolist())
+        movable = present & ~self.required[:, child]
+        if int(present.sum()) < self.cap:
+            movable |= self.allowed[:, child] & ~present
+        movable[child] = False
+        return mask, np.flatnonzero(movable)
+
+    def _column_request(self, child: int) -> tuple[int, int, list[int]]:
+        """What :meth:`_refresh_column` will ask of the scorer for ``child``, as a request
+        of :meth:`~runner.scores.cache.CachedScorer.prefetch`."""
+        mask, candidates = self._column(child)
+        return child, mask, candidates.tolist()
+
+    def _prefetch_size(self) -> int:
+        """How many columns of the first fill are computed ahead together: 0 when the
+        scorer has no batch backend (``batches``), else enough columns for about
+        :attr:`PREFETCH_FAMILIES` families (a budget is consulted between batches)."""
+        if not getattr(self.scorer, "batches", False):
+            return 0
+        return max(1, self.PREFETCH_FAMILIES // max(1, self.n - 1))
+
+    def _refresh_columns(self, children: Sequence[int]) -> None:
+        """Refresh the columns of ``children`` after a move, computed ahead in one batch
+        when the scorer has a batch backend."""
+        batched = getattr(self.scorer, "batches", False)
+        if batched:
+            self.scorer.prefetch([self._column_request(c) for c in children])
+        for child in children:
+            self._refresh_column(child)
+        if batched:
+            self.scorer.discard_ready()
+
     def _refresh_column(self, child: int, check: FillCheck | None = None) -> bool:
         """Recompute family ``child`` and the toggle deltas of its candidate parents (the
         present ones that may leave, and the allowed ones that may enter while the cap
@@ -174,15 +220,9 @@ class MoveEngine(BoundEngine):
         at the same place and with the same evaluations as one family at a time.
         """
         scorer = self.scorer
-        present = self.adjacency[:, child]
-        mask = parent_mask(np.flatnonzero(present).tolist())
+        mask, candidates = self._column(child)
         base = scorer.family_by_mask(child, mask)
         self.family[child] = base
-        movable = present & ~self.required[:, child]
-        if int(present.sum()) < self.cap:
-            movable |= self.allowed[:, child] & ~present
-        movable[child] = False
-        candidates = np.flatnonzero(movable)
         column = np.full(self.n, np.nan)
         others = self.n - 1  # the variables the check is consulted at
         done = 0  # candidates scored so far
@@ -360,17 +400,16 @@ class MoveEngine(BoundEngine):
         if move.kind == "add":
             self.adjacency[s, t] = True
             self._add_reach(s, t)
-            self._refresh_column(t)
+            self._refresh_columns([t])
         elif move.kind == "delete":
             self.adjacency[s, t] = False
             self._recompute_reach()
-            self._refresh_column(t)
+            self._refresh_columns([t])
         elif move.kind == "reverse":
             self.adjacency[s, t] = False
             self.adjacency[t, s] = True
             self._recompute_reach()
-            self._refresh_column(t)
-            self._refresh_column(s)
+            self._refresh_columns([t, s])
         else:
             raise ValueError(f"unknown move kind {move.kind!r}")
         return delta
