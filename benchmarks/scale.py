@@ -58,10 +58,11 @@ SCALE_CASES = {c.name: c for c in (
     ScaleCase("hailfinder-10k", "hailfinder", 10_000),
     ScaleCase("andes-10k-cap4", "andes", 10_000, parent_cap=4),
     ScaleCase("pigs-5k-cap4", "pigs", 5_000, parent_cap=4),
-    ScaleCase("pigs-5k-cap4-cand", "pigs", 5_000, parent_cap=4, candidates=10),
+    ScaleCase("pigs-5k-cap4-cand", "pigs", 5_000, parent_cap=4, candidates=10, trace=True),
     ScaleCase("andes-10k-cap4-cand", "andes", 10_000, parent_cap=4, candidates=10),
-    ScaleCase("link-10k-cap4-cand", "link", 10_000, parent_cap=4, candidates=10),
-    ScaleCase("munin-10k-cap4-cand", "munin", 10_000, parent_cap=4, candidates=10),
+    ScaleCase("link-10k-cap4-cand", "link", 10_000, parent_cap=4, candidates=10, trace=True),
+    ScaleCase("munin-10k-cap4-cand", "munin", 10_000, parent_cap=4, candidates=10,
+              trace=True),
 )}
 DEFAULT_SCALE_CASES = ",".join(SCALE_CASES)
 #: Variables of the networks (pgmpy 1.1.2's example models).
