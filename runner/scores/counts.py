@@ -21,6 +21,14 @@ counted :data:`AUTO_AFTER_ROWS` rows x families (or until the kernel is loaded i
 process), then the kernel if numba imports (a small search never pays for importing
 numba). Either way the tables, and so every
 score, are the same bits.
+
+A child's column of candidate families (its parent set with each candidate added in
+turn, the move engine's delta column) is counted together on the numpy path too
+(:func:`column_counts`): when the occurring (parent configuration, child state) cells
+are few, by ``popcount`` of ANDs of per-state row bitmaps (:class:`StateBitmaps`, 64 rows
+a word, so the work is cells x candidate states x rows / 64 instead of candidates x
+rows); else by one ``numpy.bincount`` over the candidates' stacked row codes, the parent
+set's code built once. Both give :func:`family_counts`' tables, entry by entry.
 """
 
 from __future__ import annotations
@@ -191,6 +199,220 @@ def family_counts(
     return table, q
 
 
+# --------------------------------------------------------------------------- columns
+
+#: Temporaries of a column count (stacked row codes, counted cells, bitmap words) are
+#: made in chunks of at most this many elements (at least one candidate a chunk).
+COLUMN_CHUNK = 1 << 20
+#: Lanes of the stacked count: consecutive rows go to different copies of a cell, so
+#: that rows in the same cell (common in real data) do not wait on each other's
+#: increments in ``numpy.bincount``; the copies are summed afterwards.
+COLUMN_LANES = 4
+#: State bitmaps are kept for the column count while they take at most this many bytes.
+BITMAP_BYTES = 64 << 20
+#: The bitmap count is used when (occurring parent cells) x (candidate states) is at most
+#: this many times the number of candidates: its word operations per row are then fewer
+#: than the stacked count's (a word holds 64 rows; measured on ALARM, 10,000 rows).
+BITMAP_CELLS = 128
+
+
+class StateBitmaps:
+    """Each (variable, state)'s rows as a bitmap: ``words[offsets[v] + s]`` has bit ``i``
+    set when row ``i`` of variable ``v`` is in state ``s`` (``uint64`` words, the bits
+    past the last row clear). Counts of conjunctions are then ``popcount`` of ANDs."""
+
+    def __init__(self, codes: np.ndarray, arities: np.ndarray) -> None:
+        n_vars, n_rows = codes.shape
+        self.offsets = np.zeros(n_vars + 1, dtype=np.intp)
+        np.cumsum(np.asarray(arities, dtype=np.intp), out=self.offsets[1:])
+        self.n_words = -(-n_rows // 64)
+        packed = np.zeros((int(self.offsets[-1]), self.n_words * 8), dtype=np.uint8)
+        for v in range(n_vars):  # one variable's states at a time: a small temporary
+            states = np.arange(int(arities[v]))[:, None]
+            packed[self.offsets[v]:self.offsets[v + 1], :-(-n_rows // 8)] = np.packbits(
+                codes[v][None, :] == states, axis=1, bitorder="little")
+        self.words = packed.view(np.uint64)
+
+    @staticmethod
+    def size(codes: np.ndarray, arities: np.ndarray) -> int:
+        """Bytes the bitmaps of ``codes`` take."""
+        return int(np.asarray(arities, dtype=np.int64).sum()) * -(-codes.shape[1] // 64) * 8
+
+    def states(self, variable: int) -> np.ndarray:
+        """The bitmaps of ``variable``'s states, one row each."""
+        return self.words[self.offsets[variable]:self.offsets[variable + 1]]
+
+
+def _bitmap_configurations(bitmaps: StateBitmaps, arities: np.ndarray,
+                           parents: Sequence[int]) -> tuple[np.ndarray, np.ndarray]:
+    """The occurring configurations of ``parents`` (sorted): their mixed-radix codes,
+    ascending, and their rows as bitmaps (one row each)."""
+    words = bitmaps.words
+    found = np.full((1, bitmaps.n_words), ~np.uint64(0))
+    codes = np.zeros(1, dtype=np.int64)
+    for v in parents:
+        radix = int(arities[v])
+        found = (found[:, None, :] & bitmaps.states(v)[None, :, :]).reshape(-1, words.shape[1])
+        codes = (codes[:, None] * radix + np.arange(radix)).ravel()
+        occurs = found.any(axis=1)
+        found, codes = found[occurs], codes[occurs]
+    return codes, found
+
+
+def _bitmap_cells(bitmaps: StateBitmaps, child: int, found: np.ndarray,
+                  added: Sequence[int]) -> np.ndarray:
+    """Counts (candidate states, configurations, child states) by ``popcount``: the
+    configurations' bitmaps ``found`` AND each child state AND each candidate state but
+    the last; a candidate's last state gets what its other states leave of the cell."""
+    cells = (found[:, None, :] & bitmaps.states(child)[None, :, :]).reshape(
+        -1, bitmaps.n_words)
+    rows = 64 * bitmaps.n_words
+    total_type = np.uint16 if rows < 1 << 16 else np.uint32 if rows < 1 << 32 else np.uint64
+    radix = np.asarray([bitmaps.offsets[p + 1] - bitmaps.offsets[p] for p in added],
+                       dtype=np.intp)
+    first = np.asarray([bitmaps.offsets[p] for p in added], dtype=np.intp)
+    counted_states = radix - 1  # every state but the last is counted
+    ends = np.cumsum(counted_states)
+    states = np.arange(int(ends[-1]), dtype=np.intp) + np.repeat(first - (ends - counted_states),
+                                                                 counted_states)
+    some = np.empty((states.size, cells.shape[0]), dtype=np.int64)
+    step = max(1, COLUMN_CHUNK // max(1, cells.size))
+    for start in range(0, states.size, step):
+        anded = bitmaps.words[states[start:start + step], None, :] & cells[None, :, :]
+        some[start:start + step] = np.bitwise_count(anded).sum(axis=2, dtype=total_type)
+    totals = np.bitwise_count(cells).sum(axis=1, dtype=np.int64)
+    # each candidate's counted states, summed: differences of a running sum
+    running = np.zeros((states.size + 1, cells.shape[0]), dtype=np.int64)
+    np.cumsum(some, axis=0, out=running[1:])
+    last = totals - (running[ends] - running[ends - counted_states])
+    out = np.empty((int(radix.sum()), cells.shape[0]), dtype=np.int64)
+    is_last = np.zeros(out.shape[0], dtype=bool)
+    is_last[np.cumsum(radix) - 1] = True
+    out[is_last] = last
+    out[~is_last] = some
+    return out.reshape(out.shape[0], found.shape[0], -1)
+
+
+def _stacked_cells(codes: np.ndarray, arities: np.ndarray, child: int,
+                   parents: Sequence[int], added: Sequence[int]) -> np.ndarray:
+    """Counts (candidate states, configurations, child states) by ``numpy.bincount``
+    over every configuration of ``parents``: each row's cell code ``j r + x`` built
+    once, a candidate's rows counted at ``(c + x_p) q r + j r + x`` (``c`` the states of
+    the candidates before it in its chunk), a chunk of candidates in one count."""
+    n_rows = codes.shape[1]
+    r = int(arities[child])
+    q = configurations(arities, parents)
+    lanes = COLUMN_LANES
+    base = np.zeros(n_rows, dtype=np.intp)
+    for v in parents:
+        base *= int(arities[v])
+        base += codes[v]
+    base *= r
+    base += codes[child]
+    base *= lanes
+    base += np.arange(n_rows, dtype=np.intp) & (lanes - 1)
+    cells = q * r * lanes
+    radix = [int(arities[p]) for p in added]
+    out = np.empty((sum(radix), q * r), dtype=np.int64)
+    first, row = 0, 0
+    while first < len(added):
+        last, width = first + 1, radix[first]
+        while (last < len(added) and (last + 1 - first) * n_rows <= COLUMN_CHUNK
+               and (width + radix[last]) * cells <= COLUMN_CHUNK):
+            width += radix[last]
+            last += 1
+        shift = np.zeros(last - first, dtype=np.intp)
+        np.cumsum(radix[first:last - 1], out=shift[1:])
+        stacked = codes[list(added[first:last])].astype(np.intp)
+        stacked += shift[:, None]
+        stacked *= cells
+        stacked += base
+        counted = np.bincount(stacked.ravel(), minlength=width * cells)
+        out[row:row + width] = counted.reshape(width, q * r, lanes).sum(axis=2)
+        first, row = last, row + width
+    return out.reshape(-1, q, r)
+
+
+def _cell_groups(added: Sequence[int], cells: int, arities: np.ndarray) -> list[list[int]]:
+    """``added`` in consecutive groups of at most :data:`COLUMN_CHUNK` dense cells
+    (``cells`` x each candidate's arity; at least one candidate a group), so that a
+    column count's dense tables stay within a few MiB whatever the width."""
+    groups: list[list[int]] = []
+    room = 0
+    for p in added:
+        size = cells * int(arities[p])
+        if not groups or size > room:
+            groups.append([])
+            room = max(COLUMN_CHUNK, size)
+        groups[-1].append(p)
+        room -= size
+    return groups
+
+
+def column_counts(codes: np.ndarray, arities: np.ndarray, child: int,
+                  parents: Sequence[int], added: Sequence[int],
+                  bitmaps: StateBitmaps | None = None) -> list[np.ndarray]:
+    """Count tables of ``child`` given the sorted ``parents`` plus each of ``added`` in
+    turn (distinct variables, none a parent or the child), equal to :func:`family_counts`'
+    tables (occurring parent configurations in ascending code order, one column per child
+    state, ``int64``), counted together.
+
+    Every code must be below its variable's arity, and each table small enough to count
+    densely (the caller's check). The counts (candidate state, configuration of
+    ``parents``, child state) come from one of two counts, the same integers: with
+    ``bitmaps`` and few occurring cells of the parents and child (at most
+    :data:`BITMAP_CELLS` x candidates, over the candidates' states), ``popcount`` of the
+    ANDs of row bitmaps (:class:`StateBitmaps`, a word per 64 rows); else one
+    ``numpy.bincount`` over stacked row codes (:func:`_stacked_cells`). Each count is then
+    put at its row of the candidate's dense table: the configuration of the sorted
+    enlarged parent set, ``(high * r_p + x_p) * L + low``, where ``high`` and ``low`` are
+    the configurations of the parents before and after the candidate and ``L`` the number
+    of the latter's; all candidates in one scatter. The configurations that do not occur
+    are then dropped in one pass. The dense tables take (configurations of ``parents``) x
+    r x (the candidates' states) cells: the caller bounds them (:func:`_cell_groups`).
+    """
+    r = int(arities[child])
+    if not added:
+        return []
+    if codes.shape[1] == 0:
+        return [np.zeros((0, r), dtype=np.int64) for _ in added]
+    members = list(parents)
+    q = configurations(arities, members)
+    radix = np.asarray([int(arities[p]) for p in added], dtype=np.int64)
+    width = int(radix.sum())
+    counted = None
+    if bitmaps is not None and q * r <= BITMAP_CELLS * len(added):
+        # the occurring cells decide (at most q r of them): few, and popcounts pay
+        configs, found = _bitmap_configurations(bitmaps, arities, members)
+        if configs.size * r * width <= BITMAP_CELLS * len(added):
+            counted = _bitmap_cells(bitmaps, child, found, added)
+    if counted is None:
+        counted = _stacked_cells(codes, arities, child, members, added)
+        configs = np.arange(q, dtype=np.int64)
+    after = [1] * (len(members) + 1)  # the product of the arities after each place
+    for k in range(len(members) - 1, -1, -1):
+        after[k] = after[k + 1] * int(arities[members[k]])
+    places = np.searchsorted(np.asarray(members, dtype=np.intp),
+                             np.asarray(added, dtype=np.intp))
+    low = np.asarray(after, dtype=np.int64)[places]
+    blocks = q * radix  # each candidate's dense rows
+    block_start = np.zeros(len(added), dtype=np.int64)
+    np.cumsum(blocks[:-1], out=block_start[1:])
+    owner = np.repeat(np.arange(len(added)), radix)  # of each candidate state
+    state = np.arange(width, dtype=np.int64) - np.repeat(np.cumsum(radix) - radix, radix)
+    low_s, radix_s = low[owner][:, None], radix[owner][:, None]
+    row = (block_start[owner][:, None]
+           + ((configs // low_s) * radix_s + state[:, None]) * low_s + configs % low_s)
+    dense = np.zeros((int(blocks.sum()), r), dtype=np.int64)
+    dense[row.ravel()] = counted.reshape(-1, r)
+    occurs = dense.any(axis=1)
+    kept = np.add.reduceat(occurs, block_start, dtype=np.intp)
+    table = dense[occurs]
+    bounds = np.zeros(len(added) + 1, dtype=np.intp)
+    np.cumsum(kept, out=bounds[1:])
+    return [table[bounds[i]:bounds[i + 1]] for i in range(len(added))]
+
+
 def configurations(arities: np.ndarray, variables: Sequence[int]) -> int:
     """Number of joint states of ``variables``: the product of their arities (1 for none)."""
     possible = 1
@@ -225,6 +447,8 @@ class CountScorer(CachedScorer):
         self._settled = codes.dtype not in (np.uint8, np.uint16)
         self._kernel_module: ModuleType | None = None
         self._counted = 0  # rows x families counted by the numpy path
+        self._in_range: bool | None = None  # every code below its arity (checked once)
+        self._bitmaps: StateBitmaps | None = None  # the numpy path's column bitmaps
 
     def _kernel(self) -> ModuleType | None:
         """The counting kernel once chosen (None: the numpy path, for now or for good)."""
@@ -238,6 +462,7 @@ class CountScorer(CachedScorer):
               or kernel_loaded()):  # loaded already: no cost left to avoid
             if self._codes_in_range():
                 self._kernel_module = counting_kernel(self._choice)
+                self._bitmaps = None  # the kernel counts the columns from now on
             self._settled = True
         return self._kernel_module
 
@@ -247,15 +472,24 @@ class CountScorer(CachedScorer):
         state = dict(self.__dict__)
         if state["_kernel_module"] is not None:
             state.update(_kernel_module=None, _settled=False, _choice=None)
-        state.update(_dense=None, _code=np.zeros(0, dtype=np.int64))
+        state.update(_dense=None, _code=np.zeros(0, dtype=np.int64), _bitmaps=None)
         return state
 
     def _codes_in_range(self) -> bool:
-        """Whether every code is below its variable's arity (the kernel trusts it)."""
-        codes = self.codes
-        if codes.size == 0:
-            return True
-        return not bool((codes.max(axis=1) >= self._arities).any())
+        """Whether every code is below its variable's arity (the kernel and the column
+        count trust it); computed once."""
+        if self._in_range is None:
+            codes = self.codes
+            self._in_range = codes.size == 0 or not bool(
+                (codes.max(axis=1) >= self._arities).any())
+        return self._in_range
+
+    def _column_bitmaps(self) -> StateBitmaps | None:
+        """The state bitmaps of the numpy path's column count, made at its first column
+        (None when they would take more than :data:`BITMAP_BYTES`)."""
+        if self._bitmaps is None and StateBitmaps.size(self.codes, self.arities) <= BITMAP_BYTES:
+            self._bitmaps = StateBitmaps(self.codes, self.arities)
+        return self._bitmaps
 
     def _scratch(self) -> tuple[np.ndarray, np.ndarray]:
         """The kernel's reused buffers: the dense table (all zero between counts) and a
@@ -283,22 +517,30 @@ class CountScorer(CachedScorer):
     def column_tables(self, child: int, mask: int,
                       candidates: Sequence[int]) -> list[tuple[np.ndarray, int]]:
         """The count tables and ``q`` of ``child`` given ``mask`` with each candidate's bit
-        flipped, as :meth:`counts` gives them; with the kernel, every added parent counted
-        from one configuration code of ``mask``, removals and tables too large for the
-        dense count one by one. The cache and counters are not touched."""
+        flipped, as :meth:`counts` gives them; every added parent counted from one
+        configuration code of ``mask`` (by the kernel, else by :func:`column_counts` when
+        the codes are in range), removals and tables too large for the dense count one by
+        one. The cache and counters are not touched."""
         kernel = self._kernel()
         parents = list(mask_members(mask))
         found: dict[int, tuple[np.ndarray, int]] = {}
-        if kernel is not None:
-            q = configurations(self.arities, parents)
-            base = q * int(self.arities[child])
-            added = [p for p in candidates
-                     if not mask >> p & 1 and base * int(self.arities[p]) <= self._limit]
-            if added:
-                tables = kernel.column_tables(self.codes, self._arities, child, parents,
-                                              added, *self._scratch())
-                for p, table in zip(added, tables, strict=True):
-                    found[p] = (table, q * int(self.arities[p]))
+        q = configurations(self.arities, parents)
+        base = q * int(self.arities[child])
+        added = [p for p in candidates
+                 if not mask >> p & 1 and base * int(self.arities[p]) <= self._limit]
+        if added and kernel is not None:
+            tables = kernel.column_tables(self.codes, self._arities, child, parents,
+                                          added, *self._scratch())
+        elif len(added) > 1 and self._codes_in_range():
+            self._counted += self.n_rows * len(added)
+            tables = []
+            for group in _cell_groups(added, base, self.arities):
+                tables += column_counts(self.codes, self.arities, child, parents, group,
+                                        self._column_bitmaps())
+        else:
+            added, tables = [], []
+        for p, table in zip(added, tables, strict=True):
+            found[p] = (table, q * int(self.arities[p]))
         for p in candidates:
             if p not in found:
                 found[p] = self.counts(child, mask_members(mask ^ (1 << p)))
