@@ -127,9 +127,25 @@ BLAS_FIELDS = ("user_api", "internal_api", "prefix", "version", "architecture",
                "threading_layer", "num_threads")
 
 
+def numpy_uses(filepath: str | None, site: Path) -> bool:
+    """Whether a loaded library at ``filepath`` is one numpy may use: bundled with numpy
+    (``numpy/``, ``numpy.libs/`` under ``site``, numpy's install folder's parent) or from
+    outside the installed packages (a system BLAS); not one another package brought, such
+    as SciPy's BLAS, which numba loads at its first compiled count and which computes no
+    stored value (so the list does not depend on which code ran first)."""
+    if not filepath:
+        return True
+    try:
+        inside = Path(filepath).resolve().relative_to(site)
+    except ValueError:
+        return True
+    return inside.parts[0].split(".")[0] == "numpy"
+
+
 def _blas() -> list[dict[str, Any]] | str:
-    """The BLAS and OpenMP libraries loaded in this process (threadpoolctl), sorted; a
-    short reason instead when they cannot be listed."""
+    """The BLAS and OpenMP libraries numpy may use, as loaded in this process
+    (threadpoolctl; :func:`numpy_uses`), sorted; a short reason instead when they cannot
+    be listed."""
     try:
         from threadpoolctl import threadpool_info
     except ImportError:
@@ -138,7 +154,9 @@ def _blas() -> list[dict[str, Any]] | str:
         found = threadpool_info()
     except Exception as exc:  # a library that cannot be inspected must not stop a run
         return f"threadpoolctl failed: {type(exc).__name__}: {exc}"
-    libraries = [{k: lib.get(k) for k in BLAS_FIELDS} for lib in found]
+    site = Path(np.__file__).resolve().parent.parent
+    libraries = [{k: lib.get(k) for k in BLAS_FIELDS} for lib in found
+                 if numpy_uses(lib.get("filepath"), site)]
     return sorted(libraries, key=lambda lib: tuple(str(lib[k]) for k in BLAS_FIELDS))
 
 
