@@ -41,6 +41,7 @@ from runner.scores import FamilyScorer
 from runner.scores.available import AvailableCaseScorer
 from runner.scores.expected import ExpectedCountScorer, SelfWeightedScorer
 from runner.scores.gaussian import GaussianScorer, GaussianStatistics
+from runner.scores.pool import pooled_scoring
 from runner.search import Budget, MoveEngine, RunSummary, SearchOutcome, local_search, with_restarts
 from runner.search.budget import BUDGET_REASONS
 from runner.search.candidates import (
@@ -631,9 +632,10 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
     rng = np.random.default_rng(np.random.SeedSequence(effective_seed))
     try:
         bar = _search_bar(prepared, reporter)
-        try:
-            (outcome, runs, parameters, extra), scorer = search_scored(
-                prepared, asked, budget, rng, bar, part.dataset)
+        try:  # the main search's batches on the local engine's workers (not bootstrap's)
+            with pooled_scoring(engine, asked) as searching:
+                (outcome, runs, parameters, extra), scorer = search_scored(
+                    prepared, searching, budget, rng, bar, part.dataset)
         finally:
             if bar is not None:
                 bar.close()
