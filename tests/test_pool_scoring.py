@@ -143,10 +143,10 @@ raise SystemExit(main(sys.argv[2:]))
 @pytest.mark.parametrize("switch_after", [1_000_000, 10**12])
 def test_fresh_processes_load_the_same_libraries_whatever_the_workers(
         switch_after: int, tmp_path: Path) -> None:
-    """In a fresh command process the counting kernel (which loads libraries that the
-    record's environment lists) is loaded after as many rows x families with a pool as
-    without: the records are the same bytes, environment included, whether the switch
-    comes mid-search (after 50 families of the 20,000-row demo) or never."""
+    """In fresh command processes, with the counting kernel loaded mid-search (after 50
+    families of the 20,000-row demo: it loads SciPy's BLAS in whichever process counts)
+    or never, the records are the same bytes whatever the workers, environment included
+    (its BLAS list names numpy's libraries only)."""
     import subprocess
     import sys
 

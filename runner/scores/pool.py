@@ -14,10 +14,9 @@ Each worker holds a :class:`~runner.scores.counts.CountScorer` over the shared c
 the same score function and arities, so it computes the same bits as the command's
 process would (counts are integers; the scores are exact functions of them); a float
 travels between processes by pickle unchanged. The record therefore does not depend on
-the number of workers, and nothing about them enters it; even the libraries the
-record's environment lists are loaded alike, since the command's process switches to
-the compiled counting kernel after as many rows x families as without a pool
-(:meth:`PooledCountScorer._as_if_counted`).
+the number of workers, and nothing about them enters it (the record's BLAS list names
+numpy's libraries only, whichever process loaded the compiled kernel:
+:func:`runner.environment.numpy_uses`).
 
 Workers are started at the first pooled batch (a learn whose batches are all small
 starts none), forked when the platform can and this process runs a single thread, else
@@ -304,24 +303,7 @@ class PooledCountScorer(CountScorer):
         pool = self.pool
         if pool is None or row_families(requests, self.n_rows) < POOL_MIN_ROW_FAMILIES:
             return super()._compute_batch(requests)
-        values = pool.compute(requests)
-        self._as_if_counted(sum(len(candidates) for _, _, candidates in requests))
-        return values
-
-    def _as_if_counted(self, families: int) -> None:
-        """Move this process's choice of counting path on as counting ``families`` here
-        would have (:meth:`~runner.scores.counts.CountScorer._kernel` before each count,
-        the numpy path's rows tallied), so that the compiled kernel is loaded in the
-        command's process exactly when one worker would have loaded it: loading it
-        loads libraries the record's ``environment`` lists, and so does its first count
-        (numba's BLAS bindings): a count is made here, as the next one here would be."""
-        for _ in range(families):
-            if self._settled:
-                return
-            if self._kernel() is not None:
-                self.counts(0, ())  # the kernel's first run in this process
-                return
-            self._counted += self.n_rows
+        return pool.compute(requests)
 
     def __getstate__(self) -> dict[str, object]:
         """A copy for another process computes its batches itself (no pool travels)."""
