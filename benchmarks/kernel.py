@@ -174,6 +174,7 @@ def run(args: argparse.Namespace) -> int:
     from benchmarks.run import encode, machine_line, sample, sample_path
 
     warnings.filterwarnings("ignore")
+    load_before = os.getloadavg()
     throughput = counting(*(lambda d: (d.codes, d.arities))(encode(sample("alarm", 10_000))))
     print(json.dumps(throughput), flush=True)
     trees = [("after", ROOT, k) for k in ("numpy", "numba", None)]
@@ -191,11 +192,16 @@ def run(args: argparse.Namespace) -> int:
             rows.append(row)
     out = Path(args.out)
     machine = machine_line()
+    load = {"before": list(load_before), "after": list(os.getloadavg())}
     (out / "RESULTS-kernel.json").write_text(json.dumps(
-        {"machine": machine, "counting": throughput, "searches": rows,
+        {"machine": machine, "load_average": load, "counting": throughput, "searches": rows,
          "repeats": args.kernel_repeats}, indent=2, sort_keys=True) + "\n")
     t = throughput
+    shown = ", ".join(f"{x:.2f}" for x in load["before"])
     lines = ["# Counting kernel and move engine", "", f"Machine: {machine}.", "",
+             f"Load average (1, 5, 15 min) at the start: {shown}; at the end: "
+             f"{', '.join(f'{x:.2f}' for x in load['after'])} (the machine may be shared: "
+             "compare the columns of one run).", "",
              "## Counting (ALARM 10k, rows x families per second)", "",
              "| work | numpy path | kernel | kernel / numpy |", "| --- | --- | --- | --- |",
              f"| {t['families']:,} single families (1-4 parents) | {t['numpy_per_s']:.3g} | "

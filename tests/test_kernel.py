@@ -12,11 +12,12 @@ import sys
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
+from unittest import mock
 
 import numpy as np
 import pytest
 from conftest import CliCall, Network
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
 from runner.errors import EnvironmentFault
@@ -38,11 +39,11 @@ kernel = pytest.importorskip("runner.scores.kernel")
 
 @st.composite
 def coded_data(draw: st.DrawFn, max_arity: int = 40, wide_arity: int = 300,
-               max_vars: int = 6) -> tuple[np.ndarray, np.ndarray]:
+               max_vars: int = 6, min_rows: int = 1) -> tuple[np.ndarray, np.ndarray]:
     """Codes (n_vars x n_rows, uint8, or uint16 with arities up to ``wide_arity``) below
     random arities; a few states of a variable may never occur."""
     n_vars = draw(st.integers(2, max_vars))
-    n_rows = draw(st.integers(1, 400))
+    n_rows = draw(st.integers(min_rows, 400))
     wide = draw(st.booleans())
     arities = np.array([draw(st.integers(1, wide_arity if wide else max_arity))
                         for _ in range(n_vars)], dtype=np.int64)
@@ -53,11 +54,11 @@ def coded_data(draw: st.DrawFn, max_arity: int = 40, wide_arity: int = 300,
     return codes, arities
 
 
-def random_family(draw: Callable[[st.SearchStrategy[Any]], Any], n_vars: int
-                  ) -> tuple[int, list[int]]:
+def random_family(draw: Callable[[st.SearchStrategy[Any]], Any], n_vars: int,
+                  most: int = 4) -> tuple[int, list[int]]:
     child = draw(st.integers(0, n_vars - 1))
     others = [v for v in range(n_vars) if v != child]
-    parents = sorted(draw(st.lists(st.sampled_from(others), unique=True, max_size=4)))
+    parents = sorted(draw(st.lists(st.sampled_from(others), unique=True, max_size=most)))
     return child, parents
 
 
@@ -95,6 +96,63 @@ def test_kernel_tables_equal_the_numpy_tables(data: tuple[np.ndarray, np.ndarray
     assert scorer._dense is None or not scorer._dense.any()  # the scratch is left zeroed
 
 
+@settings(max_examples=200, deadline=None)
+@given(data=coded_data(max_arity=6, wide_arity=12, max_vars=8, min_rows=0), choice=st.data(),
+       narrow=st.booleans())
+def test_every_lane_count_and_width_gives_the_numpy_table(
+        data: tuple[np.ndarray, np.ndarray], choice: st.DataObject, narrow: bool) -> None:
+    """However the count is spread (one to ``LANES`` lanes, as the rows and the room
+    allow, also over fewer rows than lanes or an odd number; the scratch in 32-bit or
+    64-bit cells; up to seven parents, past the one-pass cell code of four), the table
+    is the numpy path's and the scratch is left zeroed. Zero and one rows included."""
+    codes, arities = data
+    child, parents = random_family(choice.draw, codes.shape[0], most=7)
+    expected, _ = family_counts(codes, arities, child, parents)
+    size = cells(arities, child, parents)
+    assume(size <= 1 << 16)
+    dense = np.zeros(size * choice.draw(st.sampled_from([1, 2, kernel.LANES])), np.int64)
+    code = np.zeros(codes.shape[1], np.int64)
+    scratch = ((dense.view(np.int32), code.view(np.uint32)) if narrow
+               else (dense, code.view(np.uint64)))
+    got = kernel._family_into_jit(codes, arities, np.asarray(parents, np.int64), child,
+                                  *scratch)
+    assert got.dtype == expected.dtype == np.int64
+    assert np.array_equal(got, expected)
+    assert not dense.any()
+
+
+def test_the_lanes_follow_the_rows_and_the_room() -> None:
+    """Up to ``LANES`` lanes while the lanes of every cell fit half the rows and the
+    scratch; one lane for tables large against the rows (the one-lane compaction)."""
+    lanes = kernel._lanes  # the Python function the kernel compiles
+    assert lanes(10, 10_000, 10_000, 8) == 8
+    assert lanes(10, 40, 10_000, 8) == 4
+    assert lanes(100, 10_000, 1_000, 8) == 4
+    assert lanes(100, 10_000, 199, 8) == 1
+    assert lanes(3, 10_000, 0, 8) == 1
+    assert lanes(1, 10_000, 10_000, 2) == 2
+
+
+def test_rows_past_the_narrow_limit_are_counted_in_64_bits(asia: Network) -> None:
+    """Above :data:`NARROW_LIMIT` rows or cells the kernel counts in 64-bit scratch: the
+    same tables, single families and columns."""
+    codes, arities = asia.codes, np.asarray(asia.arities, np.int64)
+    dense = np.zeros(1 << 12, np.int64)
+    code = np.zeros(codes.shape[1], np.int64)
+    narrow = kernel.family_table(codes, arities, 0, [1, 3], dense, code)
+    column = kernel.column_tables(codes, arities, 0, [3], [1, 2, 4, 5, 6], dense, code)
+    with (mock.patch.object(kernel, "NARROW_LIMIT", 0),  # the 32-bit entries unreachable
+          mock.patch.object(kernel, "_family_table_jit", None),
+          mock.patch.object(kernel, "_column_tables_jit", None)):
+        wide = kernel.family_table(codes, arities, 0, [1, 3], dense, code)
+        wide_column = kernel.column_tables(codes, arities, 0, [3], [1, 2, 4, 5, 6], dense,
+                                           code)
+    assert np.array_equal(narrow, wide)
+    assert all(np.array_equal(a, b) for a, b in zip(column, wide_column, strict=True))
+    assert np.array_equal(wide, family_counts(codes, arities, 0, [1, 3])[0])
+    assert not dense.any()
+
+
 def test_the_width_cases_are_all_reached() -> None:
     """The property above reaches every code width: these arities give families of
     uint8, uint16, uint32 and uint64 cells."""
@@ -103,26 +161,30 @@ def test_the_width_cases_are_all_reached() -> None:
 
 
 @settings(max_examples=150, deadline=None)
-@given(data=coded_data(max_arity=6, wide_arity=9, max_vars=9), choice=st.data())
+@given(data=coded_data(max_arity=6, wide_arity=9, max_vars=9, min_rows=0), choice=st.data(),
+       narrow=st.booleans())
 def test_a_column_of_candidates_equals_its_families_counted_alone(
-        data: tuple[np.ndarray, np.ndarray], choice: st.DataObject) -> None:
+        data: tuple[np.ndarray, np.ndarray], choice: st.DataObject, narrow: bool) -> None:
     """Each added parent, wherever it falls among the sorted parents, gives the table of
-    its family counted on its own."""
+    its family counted on its own, in 32-bit or 64-bit scratch, from zero rows on."""
     codes, arities = data
     n_vars = codes.shape[0]
     child = choice.draw(st.integers(0, n_vars - 1))
     others = [v for v in range(n_vars) if v != child]
-    parents = sorted(choice.draw(st.lists(st.sampled_from(others), unique=True, max_size=3)))
+    # up to five parents: past the one-pass cell code of four
+    parents = sorted(choice.draw(st.lists(st.sampled_from(others), unique=True, max_size=5)))
     rest = [v for v in others if v not in parents]
     # often four or more: the kernel counts four candidates per pass when they fit
     extras = choice.draw(st.lists(st.sampled_from(rest), unique=True, min_size=min(
         len(rest), choice.draw(st.sampled_from([0, 4]))))) if rest else []
     largest = max([cells(arities, child, [*parents, e]) for e in extras], default=1)
+    assume(largest <= 1 << 16)
     # room for: the largest table in one lane; each in lanes; four at once in lanes
     room = choice.draw(st.sampled_from([1, kernel.LANES, 4 * kernel.LANES]))
     dense = np.zeros(largest * room, np.int64)
-    tables = kernel.column_tables(codes, arities, child, parents, extras, dense,
-                                  np.zeros(codes.shape[1], np.int64))
+    with mock.patch.object(kernel, "NARROW_LIMIT", kernel.NARROW_LIMIT if narrow else 0):
+        tables = kernel.column_tables(codes, arities, child, parents, extras, dense,
+                                      np.zeros(codes.shape[1], np.int64))
     assert len(tables) == len(extras)
     for extra, table in zip(extras, tables, strict=True):
         expected, _ = family_counts(codes, arities, child, sorted([*parents, extra]))
