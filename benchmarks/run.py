@@ -7,12 +7,15 @@ Usage::
     python -m benchmarks --budget [--budget-columns 300] [--budget-label after] ...
     python -m benchmarks --scale [--scale-cases alarm-10k,pigs-5k-cap4,...] [--repeats 1]
     python -m benchmarks --kernel [--kernel-before TREE] [--kernel-cases alarm-10k,...]
+    python -m benchmarks --dask-rows [--dask-rows-rows 10000000] [--dask-rows-parts 8]
 
 ``--quality`` runs the search-quality suite (:mod:`benchmarks.quality`) instead of the
 speed suite and writes ``RESULTS-quality.md`` and ``RESULTS-quality.json``; ``--budget``
 the budget-keeping case on wide data (:mod:`benchmarks.budget`: ``RESULTS-budget.md``);
 ``--kernel`` the counting kernel and the move engine (:mod:`benchmarks.kernel`:
-``RESULTS-kernel.md``).
+``RESULTS-kernel.md``); ``--dask-rows`` one learn of ALARM rows in Parquet partitions in
+one process and on a 2-worker Dask LocalCluster (:mod:`benchmarks.dask_rows`:
+``RESULTS-dask-rows.md``).
 
 Data are sampled once per case with pgmpy's sampler and a fixed seed, cached as CSV
 under a temporary folder (never committed). Each case is timed ``--repeats`` times for
@@ -214,7 +217,7 @@ def machine_line() -> str:
 
 def main(argv: list[str] | None = None) -> int:
     # they import this module: load them once it is complete
-    from benchmarks import budget, kernel, quality, scale
+    from benchmarks import budget, dask_rows, kernel, quality, scale
 
     parser = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__)
     parser.add_argument("--cases", default=DEFAULT_CASES)
@@ -230,10 +233,14 @@ def main(argv: list[str] | None = None) -> int:
                         help="run the scale suite (wide networks, candidates, 1M rows)")
     parser.add_argument("--kernel", action="store_true",
                         help="time the counting kernel and the move engine instead")
+    parser.add_argument("--dask-rows", action="store_true",
+                        help="one learn of ALARM rows in Parquet partitions, in one process "
+                        "and on a 2-worker Dask LocalCluster")
     quality.add_arguments(parser)
     budget.add_arguments(parser)
     scale.add_arguments(parser)
     kernel.add_arguments(parser)
+    dask_rows.add_arguments(parser)
     args = parser.parse_args(argv)
     Path(args.out).mkdir(parents=True, exist_ok=True)  # a fresh --out folder is made
     if args.quality:
@@ -244,6 +251,8 @@ def main(argv: list[str] | None = None) -> int:
         return scale.run(args)
     if args.kernel:
         return kernel.run(args)
+    if args.dask_rows:
+        return dask_rows.run(args)
     warnings.filterwarnings("ignore")
     rows = []
     for name in args.cases.split(","):
