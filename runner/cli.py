@@ -216,6 +216,7 @@ def _learn_specs(args: argparse.Namespace, root: Path,
     all prepared before any is learned, the up-to-date project specs skipped unless
     ``--force``; the engine is opened only when there is something to learn."""
     from runner.batch import learn_planned, plan_specs
+    from runner.partitioned import rows_on_engine
     from runner.progress import Reporter
     from runner.project import spec_arguments
 
@@ -226,13 +227,16 @@ def _learn_specs(args: argparse.Namespace, root: Path,
     if choice.capped:
         print(choice.capped, file=sys.stderr)
     seed = getattr(args, "seed", None)
-    planned = plan_specs([r.path for r in refs], root, data_path=args.data, seed=seed,
-                         reuse_bins=reuse_bins, project={r.path for r in refs if r.discovered},
-                         force=args.force, vary=vary)
-    if all(p.current is not None for p in planned):
-        return learn_planned(planned, root, InProcess())  # nothing to learn
-    with open_engine(choice) as engine:
-        return learn_planned(planned, root, engine, seed=seed, reporter=Reporter(args.quiet))
+    with rows_on_engine(choice):  # a Parquet folder under Dask: rows read on the workers
+        planned = plan_specs([r.path for r in refs], root, data_path=args.data, seed=seed,
+                             reuse_bins=reuse_bins,
+                             project={r.path for r in refs if r.discovered},
+                             force=args.force, vary=vary)
+        if all(p.current is not None for p in planned):
+            return learn_planned(planned, root, InProcess())  # nothing to learn
+        with open_engine(choice) as engine:
+            return learn_planned(planned, root, engine, seed=seed,
+                                 reporter=Reporter(args.quiet))
 
 
 def _outcome_lines(outcomes: Sequence[SpecOutcome], up_to_date: bool = True) -> list[str]:

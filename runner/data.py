@@ -43,6 +43,7 @@ import codecs
 import csv
 import difflib
 import errno
+import glob
 import hashlib
 import importlib
 import io
@@ -379,10 +380,34 @@ def is_parquet(path: str | Path) -> bool:
     return Path(path).suffix.lower() in PARQUET_SUFFIXES
 
 
+#: Characters that make a data path that names no file a glob of Parquet partitions.
+GLOB_CHARACTERS = frozenset("*?[")
+
+
+def is_glob(path: str | Path) -> bool:
+    """Whether a data path is a glob of Parquet partitions: it names no existing file or
+    folder and has ``*``, ``?`` or ``[`` in it."""
+    return bool(GLOB_CHARACTERS & set(str(path))) and not Path(path).exists()
+
+
+def is_partitioned(path: str | Path) -> bool:
+    """Whether a data path names Parquet partitions: a folder, or a glob."""
+    return Path(path).is_dir() or is_glob(path)
+
+
 def parquet_parts(path: Path, file: str, key_prefix: str = "dataset") -> list[Path] | None:
     """The partitions of a data path that is a folder: its ``.parquet``/``.pq`` files
-    (not those of subfolders), sorted by name; None when ``path`` is not a folder. A
-    folder without one is bad input."""
+    (not those of subfolders), sorted by name; or a glob (:func:`is_glob`): the
+    ``.parquet``/``.pq`` files it matches, sorted by name (then by path); None when
+    ``path`` is neither. A folder or glob without one is bad input."""
+    if is_glob(path):
+        matches = sorted((Path(m) for m in glob.glob(str(path))
+                          if is_parquet(m) and Path(m).is_file()),
+                         key=lambda p: (p.name, str(p)))
+        if not matches:
+            raise InputError(Problem(file, "is a glob that matches no .parquet or .pq file",
+                                     key=f"{key_prefix}.path"))
+        return matches
     if not path.is_dir():
         return None
     parts = sorted((p for p in path.iterdir() if is_parquet(p) and not p.name.startswith(".")),

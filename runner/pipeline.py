@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from runner import registry
+from runner import partitioned, registry
 from runner.bootstrap import ReplicateJob, bootstrap_block, replicate_seeds, run_replicate
 from runner.caution import CAUTION
 from runner.codeversion import code_sha256, code_version
@@ -150,7 +150,7 @@ def _prepare_loaded(spec: Spec, spec_display: str, problems: list[Problem],
         if outside is not None:
             raise InputError([*problems, outside])
     try:
-        dataset = read_data(normalised_spec(spec), path, display, expected_sha256=pin)
+        dataset = read_rows(spec, spec_display, path, display, pin)
     except InputError as exc:
         raise InputError(problems + exc.problems) from None
     warnings.extend(dataset.warnings)
@@ -203,6 +203,21 @@ def read_data(normal: Mapping[str, Any], path: Path, display: str,
                         **loader_settings(normal["dataset"]))
 
 
+def read_rows(spec: Spec, spec_display: str, path: Path, display: str,
+              expected_sha256: str | None = None) -> Dataset:
+    """The spec's data: read in this process (:func:`read_data`), or, for a Parquet folder
+    or glob under a Dask engine (:func:`runner.partitioned.rows_on_engine`), read,
+    encoded and later counted on the workers (the keys that mode refuses, exit 2)."""
+    normal = normalised_spec(spec)
+    if not partitioned.active_for(path):
+        return read_data(normal, path, display, expected_sha256=expected_sha256)
+    refused = partitioned.refusals(spec, spec_display)
+    if refused:
+        raise InputError(refused)
+    return partitioned.load_partitioned(path, display, loader_settings(normal["dataset"]),
+                                        expected_sha256)
+
+
 def resolve_data(normal: Mapping[str, Any], dataset: Dataset, *, spec_file: str,
                  data_file: str, line_of: Callable[[str], int | None] = lambda key: None,
                  stored_bins: Mapping[str, Mapping[str, Any]] | None = None,
@@ -230,7 +245,10 @@ def spec_scorer(normal: Mapping[str, Any],
                 dataset: Dataset) -> FamilyScorer | SelfWeightedScorer:
     """The normalised spec's score bound to a resolved data set (its learning rows); under
     ``dataset.missing: structural-em`` the scorer that weighs each DAG by its own EM
-    weights (:mod:`runner.scores.expected`)."""
+    weights (:mod:`runner.scores.expected`); on rows kept on Dask workers, the scorer of
+    their counts (:mod:`runner.partitioned`)."""
+    if isinstance(dataset, partitioned.PartitionedDataset):
+        return partitioned.partitioned_scorer(normal["score"], dataset)
     return make_scorer(normal["score"], dataset, (normal.get("dataset") or {}).get("missing"))
 
 
@@ -664,11 +682,16 @@ def learn(prepared: Prepared, seed: int | None = None, engine: Engine | None = N
             names[c]: scorer.available_rows(c, ps) for c, ps in enumerate(outcome.parent_sets)}
     pseudo_count = spec.fit.pseudo_count if spec.fit is not None else DEFAULT_PSEUDO_COUNT
     gaussian = is_gaussian(score_spec["name"])
-    model, fitted = fit_model(part.dataset, gaussian, outcome.parent_sets, pseudo_count,
-                              graph_sha256(edges), statistics,
-                              mixed=is_mixed(score_spec["name"]),
-                              expected=(scorer.completions.codes, scorer.weights)
-                              if isinstance(scorer, ExpectedCountScorer) else None)
+    fitted: Any
+    if isinstance(part.dataset, partitioned.PartitionedDataset):  # counted on the workers
+        model, fitted = partitioned.fit_remote(part.dataset, outcome.parent_sets,
+                                               pseudo_count, graph_sha256(edges))
+    else:
+        model, fitted = fit_model(part.dataset, gaussian, outcome.parent_sets, pseudo_count,
+                                  graph_sha256(edges), statistics,
+                                  mixed=is_mixed(score_spec["name"]),
+                                  expected=(scorer.completions.codes, scorer.weights)
+                                  if isinstance(scorer, ExpectedCountScorer) else None)
     record: dict[str, Any] = {
         "format_version": 2,  # runner.record.FORMAT_VERSION
         "run_id": None,
