@@ -532,18 +532,12 @@ def _scratch(n_rows: int) -> tuple[int, np.ndarray, np.ndarray]:
 
 def _kernel_cells(kernel: ModuleType, codes: np.ndarray, arities: np.ndarray, child: int,
                   parents: Sequence[int], cells: int) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`_cells` by the compiled counting kernel (:mod:`runner.scores.kernel`: one
-    pass over the rows into a dense table with lanes, the same integers)."""
-    n_rows = int(codes.shape[1])
-    _, dense, code = _scratch(n_rows)
-    lanes = kernel._lanes(cells, dense.shape[0])
-    kernel._family_dense_jit(codes, np.asarray(arities, dtype=np.int64),
-                             np.asarray(parents, dtype=np.int64), child, dense, code)
-    used = dense[:cells * lanes]
-    totals = used.reshape(cells, lanes).sum(axis=1)
-    used[:] = 0
-    keys = np.flatnonzero(totals)
-    return keys.astype(np.uint64), totals[keys]
+    """:func:`_cells` by the compiled counting kernel (:func:`runner.scores.kernel.family_cells`:
+    one pass over the rows into a dense table with lanes, the same integers)."""
+    _, dense, code = _scratch(int(codes.shape[1]))
+    keys, counts = kernel.family_cells(codes, np.asarray(arities, dtype=np.int64), child,
+                                       list(parents), dense, code)
+    return keys, counts
 
 
 def count_columns(codes: np.ndarray, arities: np.ndarray,

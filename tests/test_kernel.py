@@ -411,3 +411,30 @@ def test_an_alarm_sample_gives_the_same_records_under_either_path(
 def test_dense_limit_follows_the_rows() -> None:
     assert dense_limit(10) == 1 << 16
     assert dense_limit(100_000) == 400_000
+
+
+@settings(max_examples=150, deadline=None)
+@given(data=coded_data(max_arity=8, wide_arity=40, max_vars=7, min_rows=0), choice=st.data())
+def test_family_cells_are_the_nonzero_cells_of_a_bincount(
+        data: tuple[np.ndarray, np.ndarray], choice: st.DataObject) -> None:
+    """The kernel's occurring cells (what a partition of the rows sends to be summed)
+    are exactly the nonzero cells of numpy's bincount of configuration code x r + child
+    state, ascending, with their counts, at one lane and interleaved lanes; the scratch
+    is left zeroed."""
+    codes, arities = data
+    child, parents = random_family(choice.draw, codes.shape[0])
+    size = cells(arities, child, parents)
+    assume(size <= 1 << 18)
+    code = np.zeros(codes.shape[1], np.int64)
+    for p in parents:
+        code = code * int(arities[p]) + codes[p]
+    dense_numpy = np.bincount(code * int(arities[child]) + codes[child], minlength=size)
+    expected = np.flatnonzero(dense_numpy)
+    for room in (size, size * kernel.LANES):
+        dense = np.zeros(room, np.int64)
+        keys, counts = kernel.family_cells(codes, arities, child, parents, dense,
+                                           np.zeros(codes.shape[1], np.int64))
+        assert keys.dtype == np.uint64 and counts.dtype == np.int64
+        assert np.array_equal(keys, expected)
+        assert np.array_equal(counts, dense_numpy[expected])
+        assert not dense.any()

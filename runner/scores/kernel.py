@@ -383,6 +383,33 @@ def _column_into(codes: np.ndarray, arities: np.ndarray, parents: np.ndarray, ch
     return out[:used].reshape(used // r, r), counts
 
 
+def _family_cells(codes: np.ndarray, arities: np.ndarray, parents: np.ndarray, child: int,
+                  dense: np.ndarray, code: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The occurring cells ``configuration * r + child state`` of one family, ascending,
+    and their counts (``dense``: int64 counts, left zeroed; ``code``: uint64 row cells)."""
+    n_rows = codes.shape[1]
+    r = arities[child]
+    total = _bound_jit(arities, parents) * r
+    lanes = _lanes_jit(total, dense.shape[0], n_rows, LANES)
+    _row_code_jit(codes, arities, parents, child, lanes, code)
+    cells = code[:n_rows]
+    for i in range(n_rows):
+        dense[cells[i]] += 1
+    keys = np.empty(min(total, n_rows), dtype=np.uint64)
+    counts = np.empty(min(total, n_rows), dtype=np.int64)
+    used = 0
+    for c in range(total):
+        count = 0
+        for lane in range(c * lanes, (c + 1) * lanes):
+            count += dense[lane]
+            dense[lane] = 0
+        if count:
+            keys[used] = c
+            counts[used] = count
+            used += 1
+    return keys[:used], counts[:used]
+
+
 def _family_table(codes: np.ndarray, arities: np.ndarray, parents: np.ndarray, child: int,
                   dense: np.ndarray, code: np.ndarray) -> np.ndarray:
     """:func:`_family_into` on 32-bit views of the scratch buffers."""
@@ -407,6 +434,23 @@ _family_into_jit = _compiled(_family_into)
 _column_into_jit = _compiled(_column_into)
 _family_table_jit = _compiled(_family_table)
 _column_tables_jit = _compiled(_column_tables)
+_family_cells_jit = _compiled(_family_cells)
+
+
+def family_cells(codes: np.ndarray, arities: np.ndarray, child: int, parents: list[int],
+                 dense: np.ndarray, code: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The occurring cells ``configuration code * r + child state`` of ``child`` given the
+    sorted ``parents``, ascending (``uint64``), and their counts (``int64``): a family's
+    counts in a form that adds up across partitions of the rows.
+
+    ``arities`` is an ``int64`` array; ``dense`` a zeroed ``int64`` scratch buffer of at
+    least (configurations x child states) cells, left zeroed; ``code`` an ``int64``
+    scratch buffer of a code per row.
+    """
+    members = np.asarray(parents, dtype=np.int64)
+    keys, counts = _family_cells_jit(codes, arities, members, child, dense,
+                                     code.view(np.uint64))
+    return keys, counts
 
 
 def family_table(codes: np.ndarray, arities: np.ndarray, child: int, parents: list[int],
