@@ -320,6 +320,7 @@ def test_importing_the_package_does_not_import_numba() -> None:
     assert out.stdout.strip() == "False"
 
 
+@pytest.mark.slow  # compiles the kernel from nothing in a fresh process (about 7 s)
 def test_an_unwritable_cache_folder_does_not_stop_the_kernel(tmp_path: Path) -> None:
     """NUMBA_CACHE_DIR under a regular file cannot be made: numba caches elsewhere or not
     at all, and counting works."""
