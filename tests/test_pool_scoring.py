@@ -65,6 +65,7 @@ def pools(monkeypatch: pytest.MonkeyPatch) -> Iterator[list[dict[str, Any]]]:
 
     monkeypatch.setattr(ScoringPool, "close", spy)
     monkeypatch.setattr(pool_module, "POOL_MIN_ROW_FAMILIES", 0)
+    monkeypatch.setattr(pool_module, "POOL_MIN_ROWS", 0)
     yield seen
 
 
@@ -132,6 +133,7 @@ FRESH_COMMAND = """\
 import sys
 import runner.engines, runner.scores.counts, runner.scores.pool
 runner.scores.pool.POOL_MIN_ROW_FAMILIES = 0
+runner.scores.pool.POOL_MIN_ROWS = 0
 runner.scores.counts.AUTO_AFTER_ROWS = int(sys.argv[1])
 runner.engines.default_workers = lambda: 4
 from runner.cli import main
@@ -312,13 +314,17 @@ def test_a_killed_worker_is_an_engine_failure_and_the_block_goes(tmp_path: Path)
     assert not pool._processes
 
 
-def test_small_batches_and_other_engines_stay_in_process() -> None:
+def test_small_batches_and_other_engines_stay_in_process(
+        monkeypatch: pytest.MonkeyPatch) -> None:
     """Below the threshold a pooled scorer computes itself (no worker starts); only a
-    local pool of several workers and a plain count scorer get a pool at all."""
+    local pool of several workers and a plain count scorer of enough rows get a pool."""
     codes = np.zeros((3, 5), dtype=np.uint8)
     arities = np.full(3, 2)
     scorer = build_scorer("bic", codes, arities)
     assert isinstance(scorer, CountScorer)
+    with pooled_scoring(runner.engines.LocalPool(2), scorer) as same:
+        assert same is scorer  # 5 rows: fewer than POOL_MIN_ROWS
+    monkeypatch.setattr(pool_module, "POOL_MIN_ROWS", 5)
     with pooled_scoring(runner.engines.LocalPool(2), scorer) as pooled:
         assert isinstance(pooled, PooledCountScorer) and pooled.pool is not None
         assert pooled.prefetch([(0, 0, [1, 2])]) == 3

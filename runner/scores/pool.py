@@ -46,21 +46,21 @@ import numpy as np
 from runner.engines import Engine, LocalPool, die_with_parent
 from runner.errors import EngineFailure
 from runner.scores.cache import ColumnRequest
-from runner.scores.counts import CountFamilyScore, CountScorer
+from runner.scores.counts import AUTO_AFTER_ROWS, CountFamilyScore, CountScorer
 
 #: Batches of fewer rows x families than this are computed in the command's process.
 #: Measured with ``python -m benchmarks --pool`` (``benchmarks/RESULTS-pool.md``: column
-#: batches of ALARM rows in process and on two workers, either counting path): a round
-#: trip to the workers costs 0.1 to 0.2 ms (a one-family batch), so on free cores, where
-#: the chunks run at once, a batch of t ms takes about t/2 + 0.15 ms: it pays from about
-#: 0.3 ms of work, some 250,000 row-families by the kernel (about 1.2 ns each), and gains
-#: about 1.6x at a million; the one run on idle cores, 14 million row-families, took
-#: 9.0 ms pooled against 17.6 ms. Under a load of 3 to 6 on the 2-core development
-#: machine the pool hardly ever paid (whole learns 0.75x to 0.9x the speed of one
-#: process: the workers wait for cores). A million keeps
-#: small searches in process (a move's column of 100 variables at 10,000 rows), where a
-#: pool could only lose, and pools the fills and the columns of large data.
-POOL_MIN_ROW_FAMILIES = 1_000_000
+#: batches of ALARM rows in process and on two workers, either counting path, on idle
+#: cores): a round trip with its pickling costs about 0.2 to 1.5 ms, and the compiled
+#: kernel counts about 2 row-families per ns in process, so two workers only gain on
+#: batches of several ms (0.7 to 0.8 of the in-process time at 14 million row-families);
+#: ten million keeps a move's column of a few hundred variables at 10,000 rows in process.
+POOL_MIN_ROW_FAMILIES = 10_000_000
+#: Data of fewer rows than this never start a pool: each family is counted in a few
+#: microseconds, less than its share of the pickling, and the workers' start (numba's
+#: load in each) is not repaid (PIGS at 5,000 rows: 0.90x the speed of one process with
+#: two workers; ALARM at 1,000,000 rows: its search 1.40x faster).
+POOL_MIN_ROWS = 50_000
 
 #: The prefix of the shared memory blocks' names (``/dev/shm/`` on Linux).
 BLOCK_PREFIX = "dagmill-codes-"
@@ -97,6 +97,9 @@ def _serve(setup: WorkerSetup, conn: Connection) -> None:
 def _answer(setup: WorkerSetup, block: SharedMemory, conn: Connection) -> None:
     codes: np.ndarray = np.ndarray(setup.shape, dtype=np.dtype(setup.dtype), buffer=block.buf)
     scorer = CountScorer(setup.function, codes, setup.arities)
+    # A worker only gets batches large enough to pool: unless DAGMILL_KERNEL says numpy,
+    # it counts with the compiled kernel from its first count (same tables either way).
+    scorer._counted = AUTO_AFTER_ROWS
     pid = os.getpid()
     while True:
         try:
@@ -315,9 +318,10 @@ class PooledCountScorer(CountScorer):
 def pools_for(engine: Engine | None, scorer: object) -> bool:
     """Whether a learn's main search scores on a pool: the local engine with more than
     one worker, and a plain :class:`~runner.scores.counts.CountScorer` (the discrete
-    scores on complete data; other scorers keep computing in process)."""
+    scores on complete data; other scorers keep computing in process) of at least
+    :data:`POOL_MIN_ROWS` rows."""
     return (isinstance(engine, LocalPool) and engine.workers > 1
-            and type(scorer) is CountScorer)
+            and type(scorer) is CountScorer and scorer.n_rows >= POOL_MIN_ROWS)
 
 
 S = TypeVar("S")
