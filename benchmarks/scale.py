@@ -142,14 +142,15 @@ def _child(name: str, repeat: int) -> None:
         return
     import runner
 
-    traced = None
-    if case.trace and repeat == 0:
+    if repeat < 0:  # the traced run alone, in a process of its own (tracing holds memory)
         import tracemalloc
 
         tracemalloc.start()
         runner.learn(spec)
-        traced = tracemalloc.get_traced_memory()[1] / 1e6
+        print(json.dumps({"case": name, "traced_mb": tracemalloc.get_traced_memory()[1] / 1e6}))
         tracemalloc.stop()
+        return
+    traced = None
     start = time.perf_counter()
     net = runner.learn(spec)
     whole = time.perf_counter() - start
@@ -174,6 +175,11 @@ def measure(name: str, repeats: int) -> dict[str, Any]:
         values = [r[key] for r in results if r.get(key) is not None]
         row[key] = statistics.median(values) if values else None
     row["peak_rss_mb"] = max(r["peak_rss_mb"] for r in results)
+    if SCALE_CASES[name].trace:
+        out = subprocess.run([sys.executable, "-m", "benchmarks.scale", "--child", name, "-1"],
+                             cwd=ROOT, capture_output=True, text=True)
+        if out.returncode == 0:
+            row["traced_mb"] = json.loads(out.stdout.strip().splitlines()[-1])["traced_mb"]
     return row
 
 
@@ -216,7 +222,7 @@ def run(args: argparse.Namespace) -> int:
     lines = ["# Scale results", "",
              f"Medians of {args.repeats} repeat(s), each case in its own process; peak RSS "
              "is the process's VmHWM (for the whole-run case: the `dagmill run` child's "
-             "maxrss); traced = tracemalloc peak of a separate traced run.", "",
+             "maxrss); traced = tracemalloc peak of a separate traced run in its own process.", "",
              "| case | variables | rows | search (s) | whole (s) | BIC | evaluations | "
              "peak RSS MB | traced MB |", "| --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
 
