@@ -331,6 +331,11 @@ class DaskEngine(Engine):
             client.cancel([handle])
         return results
 
+    def connected(self) -> Client:
+        """The engine's client: the scheduler's, or (``dask-local``) that of a
+        LocalCluster started now, closed with the engine."""
+        return self.client if self.client is not None else self._start_local_cluster()
+
     def _start_local_cluster(self) -> Client:
         import logging
 

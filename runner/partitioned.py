@@ -41,7 +41,6 @@ from __future__ import annotations
 import contextlib
 import contextvars
 import math
-import os
 import threading
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -69,7 +68,7 @@ from runner.scores.likelihood import column_form
 if TYPE_CHECKING:  # Dask is an optional extra, imported where it is used
     from distributed import Client
 
-    from runner.engines import EngineChoice
+    from runner.engines import DaskEngine, EngineChoice
     from runner.fit import DiscreteFamily
     from runner.spec import Spec
 
@@ -86,8 +85,7 @@ class _Source:
 
     client: Client | None = None
     choice: EngineChoice | None = None
-    cluster: Any = None
-    owned: bool = False
+    engine: DaskEngine | None = None  # the engine opened here (closed with the context)
     once: bool = False  # one data set per command (the engine's specs run elsewhere)
     loaded: int = 0
 
@@ -95,34 +93,16 @@ class _Source:
         if self.client is not None:
             return self.client
         assert self.choice is not None
-        import logging
+        from runner.engines import DaskEngine
 
-        from distributed import Client, LocalCluster
-
-        if self.choice.kind == "dask-local":
-            from runner.worker_watch import DieWithParent
-
-            self.cluster = LocalCluster(n_workers=self.choice.workers, threads_per_worker=1,
-                                        processes=True, host="127.0.0.1",
-                                        dashboard_address=None, silence_logs=logging.ERROR)
-            self.client = Client(self.cluster)
-            self.client.register_plugin(DieWithParent(os.getpid()))
-        else:
-            from runner.engines import DaskEngine
-
-            engine = DaskEngine(self.choice)  # checks the scheduler and its workers
-            self.client = engine.client
-        self.owned = True
-        assert self.client is not None
+        self.engine = DaskEngine(self.choice)  # checks the scheduler and its workers
+        self.client = self.engine.connected()
         return self.client
 
     def close(self) -> None:
-        if self.owned:
-            if self.client is not None:
-                self.client.close()
-            if self.cluster is not None:
-                self.cluster.close()
-        self.client = self.cluster = None
+        if self.engine is not None:
+            self.engine.close()
+        self.client = self.engine = None
 
 
 _ACTIVE: contextvars.ContextVar[_Source | None] = contextvars.ContextVar(
