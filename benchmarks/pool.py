@@ -1,4 +1,4 @@
-"""One learn on several cores: the scoring pool (:mod:`runner.scores.pool`).
+"""One learn on several cores: the scoring pool (:mod:`runner.scoring_pool`).
 
 Usage::
 
@@ -7,9 +7,9 @@ Usage::
 Two parts, written to ``RESULTS-pool.md`` and ``RESULTS-pool.json``:
 
 * ``threshold``: one batch of one child's column (the size of a move's refresh) computed
-  in this process and on a two-worker :class:`~runner.scores.pool.ScoringPool`, at
+  in this process and on a two-worker :class:`~runner.scoring_pool.ScoringPool`, at
   growing rows x families, on ALARM 100k rows, with either counting path; where the pool
-  starts to pay is what :data:`runner.scores.pool.POOL_MIN_ROW_FAMILIES` is chosen from.
+  starts to pay is what :data:`runner.scoring_pool.POOL_MIN_ROW_FAMILIES` is chosen from.
 * ``learn``: the whole ``dagmill run`` command with ``--workers 1`` and ``--workers 2``
   side by side (same data, same spec), its search seconds and wall time, and the two
   records asserted equal apart from their times and run ids.
@@ -54,7 +54,7 @@ def _threshold_child(kernel: str) -> list[dict[str, Any]]:
 
     from runner.data import load_dataset
     from runner.scores import build_scorer
-    from runner.scores.pool import ScoringPool, row_families
+    from runner.scoring_pool import ScoringPool, row_families
 
     data = load_dataset(sample_path("alarm", 100_000), missing_values=[])
     arities = np.asarray(data.arities)

@@ -41,7 +41,7 @@ from runner.scores import FamilyScorer
 from runner.scores.available import AvailableCaseScorer
 from runner.scores.expected import ExpectedCountScorer, SelfWeightedScorer
 from runner.scores.gaussian import GaussianScorer, GaussianStatistics
-from runner.scores.pool import pooled_scoring
+from runner.scoring_pool import pooled_scoring
 from runner.search import Budget, MoveEngine, RunSummary, SearchOutcome, local_search, with_restarts
 from runner.search.budget import BUDGET_REASONS
 from runner.search.candidates import (

@@ -1,8 +1,8 @@
-"""One learn on several cores (:mod:`runner.scores.pool`): the main search's batches of
+"""One learn on several cores (:mod:`runner.scoring_pool`): the main search's batches of
 family scores computed by a pool of worker processes over the codes in shared memory.
 
 Everything here runs a real pool (processes, shared memory); nothing is mocked. Where a
-test lowers :data:`runner.scores.pool.POOL_MIN_ROW_FAMILIES` it is so that the small
+test lowers :data:`runner.scoring_pool.POOL_MIN_ROW_FAMILIES` it is so that the small
 data sets of a test are pooled at all; the families each worker reports computing
 prove that they were."""
 
@@ -24,12 +24,12 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import runner.engines
+from runner import scoring_pool as pool_module
 from runner.errors import EngineFailure
 from runner.scores import build_scorer
-from runner.scores import pool as pool_module
 from runner.scores.cache import ColumnRequest
 from runner.scores.counts import CountScorer
-from runner.scores.pool import (
+from runner.scoring_pool import (
     BLOCK_PREFIX,
     PooledCountScorer,
     ScoringPool,
@@ -132,9 +132,9 @@ def test_one_two_and_four_workers_store_the_same_records(
 #: kernel's automatic switch after ``sys.argv[1]`` rows x families.
 FRESH_COMMAND = """\
 import sys
-import runner.engines, runner.scores.counts, runner.scores.pool
-runner.scores.pool.POOL_MIN_ROW_FAMILIES = 0
-runner.scores.pool.POOL_MIN_ROWS = 0
+import runner.engines, runner.scores.counts, runner.scoring_pool
+runner.scoring_pool.POOL_MIN_ROW_FAMILIES = 0
+runner.scoring_pool.POOL_MIN_ROWS = 0
 runner.scores.counts.AUTO_AFTER_ROWS = int(sys.argv[1])
 runner.engines.default_workers = lambda: 4
 from runner.cli import main
