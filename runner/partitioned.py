@@ -62,6 +62,7 @@ from runner.scores.counts import (
     counting_kernel,
     dense_limit,
     kernel_choice,
+    score_tables,
 )
 from runner.scores.likelihood import column_form
 
@@ -202,15 +203,10 @@ class Partitions:
 
     def counts(self, arities: np.ndarray,
                families: Sequence[tuple[int, tuple[int, ...]]]) -> list[_Counted]:
-        """The summed counts of ``families`` (child, sorted parents) over every partition:
-        one task per partition, all submitted together (one round trip)."""
-        client = self.client
-        with _lost_work("the partitions' counts"):
-            futures = [client.submit(count_families, f, arities, list(families), pure=False)
-                       for f in self.codes]
-            parts = [p.unpacked() for p in client.gather(futures)]
-        return [_merge(arities, child, parents, [p[k] for p in parts])
-                for k, (child, parents) in enumerate(families)]
+        """The summed counts of ``families`` (child, sorted parents) over every partition,
+        as one batch of one-family columns (:meth:`column_counts`, one round trip)."""
+        return self.column_counts(arities, [(child, parents, [child])
+                                            for child, parents in families])
 
     def column_counts(self, arities: np.ndarray,
                       requests: Sequence[tuple[int, tuple[int, ...], Sequence[int]]]
@@ -532,13 +528,6 @@ def count_columns(codes: np.ndarray, arities: np.ndarray,
                     for child, base, candidates in requests for p in candidates])
 
 
-def count_families(codes: np.ndarray, arities: np.ndarray,
-                   families: Sequence[tuple[int, Sequence[int]]]) -> _PartCounts:
-    """One task on a worker: the occurring cells of each family on its partition, packed
-    into a few arrays (one message, not one per family)."""
-    return _packed([_cells(codes, arities, child, parents) for child, parents in families])
-
-
 def _packed(cells: Sequence[tuple[np.ndarray, np.ndarray]]) -> _PartCounts:
     """Families' cells in a few arrays (one message, not one per family)."""
     flat = [k for k, _ in cells if k.ndim == 1]
@@ -584,33 +573,32 @@ class _Counted:
     keys: np.ndarray
     counts: np.ndarray
 
-    def _configurations(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """The occurring configurations (codes, or parent-state rows), each cell's
-        configuration index and each cell's child state."""
+    def _filled(self) -> tuple[np.ndarray, np.ndarray]:
+        """The occurring configurations (codes, or parent-state rows), ascending, and the
+        count table over them (one row each, one column per child state)."""
         r = self.arity
         if self.keys.ndim == 1:
             configs, row_of = np.unique(self.keys // np.uint64(r), return_inverse=True)
-            return configs, row_of.reshape(-1), (self.keys % np.uint64(r)).astype(np.intp)
-        configs, row_of = np.unique(self.keys[:, :-1], axis=0, return_inverse=True)
-        return (configs.reshape(-1, len(self.parents)), row_of.reshape(-1),
-                self.keys[:, -1].astype(np.intp))
+            states = (self.keys % np.uint64(r)).astype(np.intp)
+        else:
+            configs, row_of = np.unique(self.keys[:, :-1], axis=0, return_inverse=True)
+            configs = configs.reshape(-1, len(self.parents))
+            states = self.keys[:, -1].astype(np.intp)
+        table = np.zeros((configs.shape[0], r), dtype=np.int64)
+        table[row_of.reshape(-1), states] = self.counts
+        return configs, table
 
     def table(self) -> tuple[np.ndarray, int]:
         """The count table and q, as :func:`runner.scores.counts.family_counts` gives them
         on the concatenated codes: occurring configurations ascending x child states."""
-        configs, row_of, states = self._configurations()
-        table = np.zeros((configs.shape[0], self.arity), dtype=np.int64)
-        table[row_of, states] = self.counts
-        return table, self.possible
+        return self._filled()[1], self.possible
 
     def family(self, arities: np.ndarray) -> DiscreteFamily:
         """The fitted family (:func:`runner.fit.discrete_family` of the concatenated
         codes)."""
         from runner.fit import DiscreteFamily
 
-        configs, row_of, states = self._configurations()
-        counts = np.zeros((configs.shape[0], self.arity), dtype=np.int64)
-        counts[row_of, states] = self.counts
+        configs, counts = self._filled()
         parents = list(self.parents)
         if self.keys.ndim == 1:
             codes = configs.astype(np.uint64)
@@ -676,11 +664,8 @@ class RemoteCountScorer(CachedScorer):
     def _scored(self, counted: Sequence[_Counted]) -> list[float]:
         """The scores of one child's families, in the column form when the score has one
         (the same bits as one at a time)."""
-        pairs = [c.table() for c in counted]
-        if self.column_function is not None:
-            return self.column_function([t for t, _ in pairs], [q for _, q in pairs],
-                                        self.n_rows)
-        return [self.function(t, q, self.n_rows) for t, q in pairs]
+        return score_tables(self.function, self.column_function,
+                            [c.table() for c in counted], self.n_rows)
 
     def _compute(self, child: int, mask: int) -> float:
         return self._scored(self.counted([(child, mask, [child])]))[0]

@@ -44,7 +44,7 @@ import numpy as np
 
 from runner.errors import EnvironmentFault
 from runner.scores.cache import CachedScorer, mask_members
-from runner.scores.likelihood import column_form
+from runner.scores.likelihood import CountColumnScore, column_form
 
 #: A score of one family from its count table: ``f(table, q, n_rows) -> float``.
 CountFamilyScore = Callable[[np.ndarray, int, int], float]
@@ -550,8 +550,16 @@ class CountScorer(CachedScorer):
         """The column's tables (:meth:`column_tables`) scored together when the score has
         a several-tables form (:func:`runner.scores.likelihood.column_form`: the same bits
         as one by one)."""
-        pairs = self.column_tables(child, mask, candidates)
-        if self.column_function is not None:
-            return self.column_function([t for t, _ in pairs], [q for _, q in pairs],
-                                        self.n_rows)
-        return [self.function(table, q, self.n_rows) for table, q in pairs]
+        return score_tables(self.function, self.column_function,
+                            self.column_tables(child, mask, candidates), self.n_rows)
+
+
+def score_tables(function: CountFamilyScore,
+                 column_function: CountColumnScore | None,
+                 pairs: Sequence[tuple[np.ndarray, int]], n_rows: int) -> list[float]:
+    """The scores of one child's count tables (with their ``q``), by the score's
+    several-tables form when it has one (:func:`runner.scores.likelihood.column_form`:
+    the same bits as one by one), else one by one."""
+    if column_function is not None:
+        return column_function([t for t, _ in pairs], [q for _, q in pairs], n_rows)
+    return [function(table, q, n_rows) for table, q in pairs]
