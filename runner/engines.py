@@ -209,6 +209,16 @@ def _call(item: Any) -> Any:
     return _WORKER_STATE["fn"](_WORKER_STATE["shared"], item)
 
 
+def start_method() -> str:
+    """How worker processes start here: ``fork`` when the platform can and this process
+    runs a single thread (forking a threaded process can copy a held lock), else
+    ``spawn``."""
+    import multiprocessing
+
+    single = threading.active_count() == 1
+    return "fork" if single and "fork" in multiprocessing.get_all_start_methods() else "spawn"
+
+
 class LocalPool(Engine):
     """A pool of ``workers`` processes, started anew for each :meth:`map`."""
 
@@ -226,12 +236,7 @@ class LocalPool(Engine):
         import concurrent.futures as cf  # here: the command's parser imports this module
         import multiprocessing
 
-        method = self.start_method
-        if method is None:
-            single = threading.active_count() == 1
-            method = "fork" if single and "fork" in multiprocessing.get_all_start_methods() else (
-                "spawn")
-        context = multiprocessing.get_context(method)
+        context = multiprocessing.get_context(self.start_method or start_method())
         results: list[Any] = [None] * len(items)
         with cf.ProcessPoolExecutor(max_workers=min(self.workers, len(items)),
                                     mp_context=context, initializer=_install,

@@ -54,7 +54,7 @@ from runner import data as reader
 from runner import registry
 from runner.data import KEEPS_GAPS, MISSING_SPELLINGS, Dataset, partitions_sha256
 from runner.errors import EngineFailure, InputError, Problem
-from runner.scores.cache import CachedScorer, ColumnRequest, mask_members
+from runner.scores.cache import CachedScorer, ColumnRequest, by_request, mask_members
 from runner.scores.counts import (
     COMPACT_ABOVE,
     code_dtype,
@@ -676,13 +676,9 @@ class RemoteCountScorer(CachedScorer):
         return self._scored(self.counted([(child, mask, candidates)]))
 
     def _compute_batch(self, requests: Sequence[ColumnRequest]) -> list[list[float]]:
-        spans = []
-        start = 0
-        for _, _, candidates in requests:
-            spans.append((start, start + len(candidates)))
-            start += len(candidates)
-        counted = self.counted(requests) if start else []
-        return [self._scored(counted[a:b]) for a, b in spans]
+        families = sum(len(candidates) for _, _, candidates in requests)
+        counted = self.counted(requests) if families else []
+        return [self._scored(column) for column in by_request(counted, requests)]
 
 
 def partitioned_scorer(score: Mapping[str, Any], dataset: PartitionedDataset

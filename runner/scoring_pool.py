@@ -33,7 +33,6 @@ import multiprocessing
 import os
 import secrets
 import signal
-import threading
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from multiprocessing.connection import Connection, wait
@@ -43,9 +42,9 @@ from typing import Any, TypeVar, cast
 
 import numpy as np
 
-from runner.engines import Engine, LocalPool, die_with_parent
+from runner.engines import Engine, LocalPool, die_with_parent, start_method
 from runner.errors import EngineFailure
-from runner.scores.cache import ColumnRequest
+from runner.scores.cache import ColumnRequest, by_request
 from runner.scores.counts import AUTO_AFTER_ROWS, CountFamilyScore, CountScorer
 
 #: Batches of fewer rows x families than this are computed in the command's process.
@@ -187,11 +186,7 @@ class ScoringPool:
         return bool(self._processes)
 
     def _method(self) -> str:
-        if self.start_method is not None:
-            return self.start_method
-        single = threading.active_count() == 1
-        return "fork" if single and "fork" in multiprocessing.get_all_start_methods() else (
-            "spawn")
+        return self.start_method or start_method()
 
     def _start(self) -> None:
         codes = np.ascontiguousarray(self.codes)
@@ -244,12 +239,7 @@ class ScoringPool:
                                     "nothing was stored")
             self.families[pid] = self.families.get(pid, 0) + len(payload)
             flat.extend(payload)
-        out: list[list[float]] = []
-        at = 0
-        for _, _, candidates in requests:
-            out.append(flat[at:at + len(candidates)])
-            at += len(candidates)
-        return out
+        return by_request(flat, requests)
 
     def _deaths(self) -> str:
         """The exit codes of the dead workers (given a moment to be reaped)."""

@@ -12,6 +12,7 @@ import math
 from abc import ABC, abstractmethod
 from collections import OrderedDict
 from collections.abc import Iterable, Sequence
+from typing import TypeVar
 
 import numpy as np
 
@@ -33,6 +34,19 @@ def cache_limit_for(n_vars: int) -> int:
 #: A column of families: ``(child, mask, candidates)``, the child given ``mask`` with each
 #: candidate's bit flipped.
 ColumnRequest = tuple[int, int, Sequence[int]]
+
+T = TypeVar("T")
+
+def by_request(values: Sequence[T], requests: Sequence[ColumnRequest]) -> list[list[T]]:
+    """``values`` given one per family of ``requests`` in order, cut into one list per
+    request (its candidates' values)."""
+    out: list[list[T]] = []
+    at = 0
+    for _, _, candidates in requests:
+        out.append(list(values[at:at + len(candidates)]))
+        at += len(candidates)
+    return out
+
 
 #: The former name of a scorer's type, kept for annotations: the protocol.
 FamilyScorer = Scorer
