@@ -243,26 +243,16 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--dask-rows", action="store_true",
                         help="one learn of ALARM rows in Parquet partitions, in one process "
                         "and on a 2-worker Dask LocalCluster")
-    quality.add_arguments(parser)
-    budget.add_arguments(parser)
-    scale.add_arguments(parser)
-    kernel.add_arguments(parser)
-    pool.add_arguments(parser)
-    dask_rows.add_arguments(parser)
+    # each suite's flag (its module's name, as --dask-rows for dask_rows) runs it instead
+    suites = {"quality": quality, "budget": budget, "scale": scale, "kernel": kernel,
+              "pool": pool, "dask_rows": dask_rows}
+    for suite in suites.values():
+        suite.add_arguments(parser)
     args = parser.parse_args(argv)
     Path(args.out).mkdir(parents=True, exist_ok=True)  # a fresh --out folder is made
-    if args.quality:
-        return quality.run(args)
-    if args.budget:
-        return budget.run(args)
-    if args.scale:
-        return scale.run(args)
-    if args.kernel:
-        return kernel.run(args)
-    if args.pool:
-        return pool.run(args)
-    if args.dask_rows:
-        return dask_rows.run(args)
+    for flag, suite in suites.items():
+        if getattr(args, flag):
+            return int(suite.run(args))
     warnings.filterwarnings("ignore")
     rows = []
     for name in args.cases.split(","):
