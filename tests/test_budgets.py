@@ -76,9 +76,9 @@ def step_clock(monkeypatch: pytest.MonkeyPatch) -> Iterator[StepClock]:
 
 @pytest.mark.slow
 def test_a_wide_fill_stops_at_max_seconds_far_below_every_pair() -> None:
-    """300 binary columns x 20,000 rows: filling every pair family takes several seconds;
+    """300 binary columns x 200,000 rows: filling every pair family takes several seconds;
     with max_seconds 1 hill climbing and GES stop in their first fill, on the start graph."""
-    codes, arities = wide_codes(300, 20_000)
+    codes, arities = wide_codes(300, 200_000)
     n = codes.shape[0]
     constraints = build_constraints([f"v{i}" for i in range(n)])
     for search in ("hill-climb", "ges"):
